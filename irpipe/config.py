@@ -1,0 +1,586 @@
+"""Survey configuration: YAML with line numbers, a declarative schema, strict validation.
+
+The schema below is the single source for validation, defaults, the JSON Schema printed by
+``irpipe schema`` and the README's config reference. Units live in the key names (``_c``,
+``_k``, ``_pct``, ``_m``, ``_um``); values are converted to SI by the consumers.
+"""
+from __future__ import annotations
+
+import difflib
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import yaml
+
+from .errors import ConfigError
+
+
+# --- YAML with marks ------------------------------------------------------------------
+
+class _Marks(dict):
+    """Maps a key path tuple to (line, column), both 1-based."""
+
+    def at(self, path):
+        p = tuple(path)
+        while p and p not in self:
+            p = p[:-1]
+        return self.get(p, (1, 1))
+
+
+def _construct(node, path, marks, loader):
+    marks[tuple(path)] = (node.start_mark.line + 1, node.start_mark.column + 1)
+    if isinstance(node, yaml.MappingNode):
+        out = {}
+        for knode, vnode in node.value:
+            key = loader.construct_object(knode, deep=True)
+            if isinstance(key, (list, dict)):
+                raise ConfigError(f"line {knode.start_mark.line + 1}: a mapping key must be a plain value")
+            if key in out:
+                raise _dup(knode, key, path)
+            marks[tuple(path) + (key,)] = (knode.start_mark.line + 1, knode.start_mark.column + 1)
+            out[key] = _construct(vnode, list(path) + [key], marks, loader)
+            marks[tuple(path) + (key,)] = (knode.start_mark.line + 1, knode.start_mark.column + 1)
+        return out
+    if isinstance(node, yaml.SequenceNode):
+        return [_construct(v, list(path) + [i], marks, loader) for i, v in enumerate(node.value)]
+    return loader.construct_object(node, deep=True)
+
+
+def _dup(knode, key, path):
+    dotted = dotted_key(list(path) + [key])
+    return ConfigError(f"line {knode.start_mark.line + 1}, {dotted}: key given twice; keep one")
+
+
+def load_yaml(text: str, filename: str = "<config>"):
+    """Parse YAML text into plain Python objects plus a map of key paths to (line, col).
+
+    Raises ConfigError with the file, line and column on a syntax error.
+    """
+    loader = yaml.SafeLoader(text)
+    try:
+        node = loader.get_single_node()
+        marks = _Marks()
+        if node is None:
+            return {}, marks
+        try:
+            data = _construct(node, [], marks, loader)
+        except ConfigError as exc:
+            raise ConfigError(f"{filename} {exc}") from None
+        return data, marks
+    except yaml.MarkedYAMLError as exc:
+        m = exc.problem_mark or exc.context_mark
+        where = f" line {m.line + 1} column {m.column + 1}" if m else ""
+        problem = exc.problem or exc.context or "invalid YAML"
+        raise ConfigError(f"{filename}{where}: YAML syntax error: {problem}; check indentation, "
+                          "colons and quotes there") from None
+    except yaml.YAMLError as exc:
+        raise ConfigError(f"{filename}: YAML syntax error: {exc}".replace("\n", " ")) from None
+    finally:
+        loader.dispose()
+
+
+def dotted_key(path) -> str:
+    out = ""
+    for p in path:
+        out += f"[{p}]" if isinstance(p, int) else (f".{p}" if out else str(p))
+    return out
+
+
+# --- schema ---------------------------------------------------------------------------
+
+class Ctx:
+    """Where a value sits: file name, marks and key path, for error messages."""
+
+    def __init__(self, filename, marks, base_dir):
+        self.filename, self.marks, self.base_dir = filename, marks, Path(base_dir)
+
+    def fail(self, path, msg):
+        line, col = self.marks.at(path)
+        key = dotted_key(path) or "(top level)"
+        raise ConfigError(f"{self.filename} line {line} column {col}, {key}: {msg}")
+
+
+@dataclass
+class Node:
+    help: str = ""
+    default: Any = None
+
+    def json(self):
+        d = {"description": self.help} if self.help else {}
+        if self.default is not None:
+            d["default"] = self.default
+        return d
+
+
+@dataclass
+class Number(Node):
+    lo: float | None = None
+    hi: float | None = None
+    lo_open: bool = False
+    hi_open: bool = False
+    integer: bool = False
+    hint_pct: bool = False      # hint "did you mean 0.93?" for values in (1, 100]
+
+    def check(self, v, path, ctx):
+        if isinstance(v, bool) or not isinstance(v, (int, float)):
+            ctx.fail(path, f"expected a number, got {v!r}")
+        if not math.isfinite(v):
+            ctx.fail(path, f"expected a finite number, got {v!r}")
+        if self.integer and not float(v).is_integer():
+            ctx.fail(path, f"expected a whole number, got {v!r}")
+        bad = ((self.lo is not None and (v <= self.lo if self.lo_open else v < self.lo)) or
+               (self.hi is not None and (v >= self.hi if self.hi_open else v > self.hi)))
+        if bad:
+            rng = f"{'(' if self.lo_open else '['}{_fmt(self.lo, '-inf')}, {_fmt(self.hi, 'inf')}{')' if self.hi_open else ']'}"
+            hint = ""
+            if self.hint_pct and 1 < v <= 100:
+                hint = f"; did you mean {v / 100:g}?"
+            ctx.fail(path, f"{v!r} is not in {rng}{hint}")
+        return int(v) if self.integer else float(v)
+
+    def json(self):
+        d = super().json()
+        d["type"] = "integer" if self.integer else "number"
+        if self.lo is not None:
+            d["exclusiveMinimum" if self.lo_open else "minimum"] = self.lo
+        if self.hi is not None:
+            d["exclusiveMaximum" if self.hi_open else "maximum"] = self.hi
+        return d
+
+
+def _fmt(x, inf):
+    return inf if x is None else f"{x:g}"
+
+
+def Celsius(help="", default=None, lo=-100.0, hi=1000.0):
+    """A temperature in degrees Celsius: above absolute zero and within a plausible range."""
+    return Number(help=help, default=default, lo=lo, hi=hi)
+
+
+@dataclass
+class String(Node):
+    choices: tuple = ()
+
+    def check(self, v, path, ctx):
+        if not isinstance(v, str) or not v.strip():
+            ctx.fail(path, f"expected a non-empty text, got {v!r}")
+        if self.choices and v not in self.choices:
+            close = difflib.get_close_matches(str(v), self.choices, n=1)
+            hint = f"; did you mean '{close[0]}'?" if close else ""
+            ctx.fail(path, f"'{v}' is not one of {', '.join(self.choices)}{hint}")
+        return v
+
+    def json(self):
+        d = super().json()
+        d["type"] = "string"
+        if self.choices:
+            d["enum"] = list(self.choices)
+        return d
+
+
+@dataclass
+class FilePath(Node):
+    """A path relative to the config file; must exist (checked at validation)."""
+
+    must_exist: bool = True
+
+    def check(self, v, path, ctx):
+        if not isinstance(v, str) or not v.strip():
+            ctx.fail(path, f"expected a file path, got {v!r}")
+        p = Path(v)
+        p = p if p.is_absolute() else ctx.base_dir / p
+        if self.must_exist:
+            if not p.exists():
+                ctx.fail(path, f"file '{v}' not found (looked in {p.parent}); paths are relative to the config file")
+            if not p.is_file():
+                ctx.fail(path, f"'{v}' is not a regular file")
+        return p
+
+    def json(self):
+        d = super().json()
+        d["type"] = "string"
+        return d
+
+
+@dataclass
+class Bool(Node):
+    def check(self, v, path, ctx):
+        if not isinstance(v, bool):
+            ctx.fail(path, f"expected true or false, got {v!r}")
+        return v
+
+    def json(self):
+        return {**super().json(), "type": "boolean"}
+
+
+@dataclass
+class Pair(Node):
+    """An ordered pair of numbers [lo, hi]."""
+
+    item: Number = field(default_factory=Number)
+    ordered: bool = True
+
+    def check(self, v, path, ctx):
+        if not isinstance(v, (list, tuple)) or len(v) != 2:
+            ctx.fail(path, f"expected a pair [low, high], got {v!r}")
+        a = self.item.check(v[0], list(path) + [0], ctx)
+        b = self.item.check(v[1], list(path) + [1], ctx)
+        if self.ordered and not a < b:
+            ctx.fail(path, f"[{a:g}, {b:g}] is not in increasing order; write [{b:g}, {a:g}]")
+        return (a, b)
+
+    def json(self):
+        return {**super().json(), "type": "array", "items": self.item.json(), "minItems": 2, "maxItems": 2}
+
+
+@dataclass
+class ListOf(Node):
+    item: Any = None
+    min_items: int = 0
+
+    def check(self, v, path, ctx):
+        if not isinstance(v, list):
+            ctx.fail(path, f"expected a list, got {type(v).__name__}")
+        if len(v) < self.min_items:
+            ctx.fail(path, f"expected at least {self.min_items} item(s)")
+        return [self.item.check(x, list(path) + [i], ctx) for i, x in enumerate(v)]
+
+    def json(self):
+        return {**super().json(), "type": "array", "items": self.item.json()}
+
+
+@dataclass
+class Mapping(Node):
+    """A mapping with known keys; unknown keys are rejected with the closest valid key."""
+
+    keys: dict = field(default_factory=dict)
+    required: tuple = ()
+
+    def check(self, v, path, ctx):
+        if v is None:
+            v = {}
+        if not isinstance(v, dict):
+            ctx.fail(path, f"expected a mapping of keys, got {v!r}")
+        out = {}
+        for k in v:
+            if k not in self.keys:
+                close = difflib.get_close_matches(str(k), list(self.keys), n=1, cutoff=0.5)
+                hint = f"did you mean '{close[0]}'? " if close else ""
+                ctx.fail(list(path) + [k], f"unknown key '{k}'; {hint}valid keys: {', '.join(self.keys)}")
+        for k in self.required:
+            if k not in v:
+                ctx.fail(path, f"missing required key '{k}'")
+        for k, node in self.keys.items():
+            if k in v and v[k] is not None:
+                out[k] = node.check(v[k], list(path) + [k], ctx)
+            elif node.default is not None:
+                out[k] = node.default
+        return out
+
+    def json(self):
+        d = {**super().json(), "type": "object", "additionalProperties": False,
+             "properties": {k: n.json() for k, n in self.keys.items()}}
+        if self.required:
+            d["required"] = list(self.required)
+        return d
+
+
+@dataclass
+class OneOf(Node):
+    """The first alternative whose ``accepts`` matches the value's form validates it."""
+
+    options: tuple = ()   # (predicate, node, description)
+    expected: str = ""
+
+    def check(self, v, path, ctx):
+        for pred, node, _ in self.options:
+            if pred(v):
+                return node.check(v, path, ctx)
+        ctx.fail(path, f"expected {self.expected}, got {v!r}")
+
+    def json(self):
+        return {**super().json(), "anyOf": [n.json() for _, n, _ in self.options]}
+
+
+def _is_num(v):
+    return isinstance(v, (int, float)) and not isinstance(v, bool)
+
+
+def _has(key):
+    return lambda v: isinstance(v, dict) and key in v
+
+
+# --- the irpipe schema ------------------------------------------------------------------
+
+EMISSIVITY = Number(lo=0.0, hi=1.0, lo_open=True, hint_pct=True,
+                    help="emissivity, a fraction in (0, 1]")
+
+_label_value = OneOf(options=(
+    (_is_num, EMISSIVITY, "emissivity"),
+    (lambda v: isinstance(v, str), String(help="material name from the material library"), "material"),
+), expected="an emissivity in (0, 1] or a material name")
+
+
+class _LabelValues(Node):
+    def check(self, v, path, ctx):
+        if not isinstance(v, dict) or not v:
+            ctx.fail(path, "expected a mapping {label number: emissivity or material name}")
+        out = {}
+        for k, val in v.items():
+            try:
+                lab = int(k)
+            except (TypeError, ValueError):
+                ctx.fail(list(path) + [k], f"label '{k}' is not a whole number")
+            if lab != float(k) if not isinstance(k, str) else str(lab) != str(k).strip():
+                ctx.fail(list(path) + [k], f"label '{k}' is not a whole number")
+            out[lab] = _label_value.check(val, list(path) + [k], ctx)
+        return out
+
+    def json(self):
+        return {"type": "object", "description": "label number -> emissivity or material name",
+                "additionalProperties": _label_value.json()}
+
+
+EMISSIVITY_SPEC = OneOf(options=(
+    (_is_num, EMISSIVITY, "number"),
+    (lambda v: isinstance(v, str), String(help="material name"), "material"),
+    (_has("map"), Mapping(keys={"map": FilePath(help="float TIFF map of emissivity, same (rows, cols) as the stack")},
+                          required=("map",)), "map"),
+    (_has("labels"), Mapping(keys={"labels": FilePath(help="integer TIFF label image, same (rows, cols) as the stack"),
+                                   "values": _LabelValues(),
+                                   "default": _label_value},
+                             required=("labels", "values")), "labels"),
+), expected="a number in (0, 1], a material name, {map: file.tif} or {labels: file.tif, values: {...}}",
+    help="surface emissivity")
+
+REFLECTED_SPEC = OneOf(options=(
+    (_is_num, Celsius(lo=-120.0), "number"),
+    (_has("reflector"), Mapping(keys={"reflector": String(help="region holding a diffuse reflector (ASTM E1862 reflector method)"),
+                                      "reflector_emissivity": Number(lo=0, hi=1, lo_open=True, default=None,
+                                                                     help="emissivity of the reflector; the reflector method assumes ~0 (0.03 for crumpled foil)")},
+                                required=("reflector",)), "reflector"),
+), expected="a temperature in C or {reflector: region name}",
+    help="reflected temperature [C] (ASTM E1862)")
+
+ATMOSPHERE = Mapping(keys={
+    "transmittance": Number(lo=0.0, hi=1.0, lo_open=True, help="force a spectrally flat path transmittance"),
+    "pressure_kpa": Number(lo=50.0, hi=110.0, help="air pressure along the path [kPa]"),
+    "model": String(choices=("lowtran7-table",), help="atmosphere model"),
+}, help="atmospheric path")
+
+CONDITIONS = Mapping(keys={
+    "emissivity": EMISSIVITY_SPEC,
+    "reflected_temperature_c": REFLECTED_SPEC,
+    "air_temperature_c": Celsius("air temperature along the path [C]", lo=-60.0, hi=60.0),
+    "relative_humidity_pct": Number(lo=0.0, hi=100.0, help="relative humidity of the path air [%]"),
+    "distance_m": Number(lo=0.0, hi=300.0, help="camera-to-surface distance [m]; 0 for no path"),
+    "atmosphere": ATMOSPHERE,
+    "view_angle_deg": Number(lo=0.0, hi=90.0, hi_open=True, help="viewing angle from the surface normal [deg]"),
+    "refractive_index": Number(lo=1.0, hi=10.0, help="refractive index for the oblique-view emissivity model"),
+}, help="measurement conditions; stack-level keys override these key by key")
+
+CALIBRATION = OneOf(options=(
+    (lambda v: isinstance(v, dict) and v.get("model") == "linear", Mapping(keys={
+        "model": String(choices=("linear", "sakuma-hattori")),
+        "gain": Number(lo=0.0, lo_open=True, help="counts per W m-2 sr-1 of band radiance"),
+        "offset_counts": Number(help="counts at zero band radiance", default=0.0),
+    }, required=("model", "gain")), "linear"),
+    (lambda v: isinstance(v, dict) and v.get("model") == "sakuma-hattori", Mapping(keys={
+        "model": String(choices=("linear", "sakuma-hattori")),
+        "A_um": Number(lo=0.5, hi=30.0, help="Sakuma-Hattori A [um]"),
+        "B_umK": Number(lo=-5000.0, hi=5000.0, help="Sakuma-Hattori B [um K]"),
+        "C": Number(lo=0.0, lo_open=True, help="Sakuma-Hattori C [counts]"),
+        "offset_counts": Number(default=0.0, help="counts at zero signal"),
+    }, required=("model", "A_um", "B_umK", "C")), "sakuma-hattori"),
+    (_has("file"), Mapping(keys={"file": FilePath(help="calibration YAML written by 'irpipe calibrate'")},
+                           required=("file",)), "file"),
+), expected="{model: linear, gain, offset_counts}, {model: sakuma-hattori, A_um, B_umK, C, offset_counts} "
+            "or {file: calibration.yaml}", help="counts calibration")
+
+CAMERA = Mapping(keys={
+    "spectral_band_um": Pair(item=Number(lo=0.5, hi=30.0), default=None, help="rectangular band [lo, hi] um"),
+    "spectral_response": FilePath(help="CSV with columns wavelength_um, response"),
+    "input": String(choices=("counts", "apparent_temperature"), default="counts"),
+    "calibration": CALIBRATION,
+    "raw_scale": Number(lo=0.0, lo_open=True, default=None, help="apparent_temperature input: kelvin per raw unit"),
+    "raw_offset": Number(default=None, help="apparent_temperature input: kelvin at raw 0"),
+    "saturation": Number(help="raw value at or above which a pixel is saturated (default: dtype maximum)"),
+    "gain_map": FilePath(help="per-pixel NUC gain TIFF (corrected = gain*raw + offset)"),
+    "offset_map": FilePath(help="per-pixel NUC offset TIFF [counts]"),
+    "bad_pixel_mask": FilePath(help="TIFF, non-zero where a pixel is bad; filled from valid neighbours"),
+    "range_c": Pair(item=Celsius(lo=-100.0, hi=2000.0), default=None,
+                    help="temperature range of the inverse tables [C]; default [-60, 650]"),
+}, help="camera model")
+
+REGION = Mapping(keys={
+    "name": String(),
+    "rect": ListOf(item=Number(integer=True), help="[row0, col0, row1, col1], half-open"),
+    "polygon": ListOf(item=Pair(item=Number(), ordered=False), min_items=3, help="[[row, col], ...]"),
+    "ellipse": Mapping(keys={"center": Pair(item=Number(), ordered=False), "radii": Pair(item=Number(lo=0, lo_open=True), ordered=False)},
+                       required=("center", "radii"), help="centre (row, col) and radii (rows, cols)"),
+    "mask": FilePath(help="TIFF, non-zero inside the region"),
+    "role": String(choices=("surface", "reference", "reflector", "component", "ambient"), default="surface"),
+    "reference": String(help="electrical: name of the similar component to compare with"),
+    "critical_temperature_factor": Number(lo=0.0, hi=1.0),
+    "view_angle_deg": Number(lo=0.0, hi=90.0, hi_open=True),
+}, required=("name",), help="a named region of the image")
+
+SPOTS = Mapping(keys={
+    "above_c": Celsius(), "below_c": Celsius(),
+    "above_reference_k": Number(lo=0.0, lo_open=True), "below_reference_k": Number(lo=0.0, lo_open=True),
+    "reference": String(help="region name or 'median'"),
+    "min_area_px": Number(lo=1, integer=True, default=4),
+}, help="spot search")
+
+STACK = Mapping(keys={
+    "name": String(),
+    "path": FilePath(),
+    "conditions": CONDITIONS,
+    "regions": ListOf(item=REGION),
+    "hotspots": SPOTS,
+    "coldspots": SPOTS,
+    "assessment": String(choices=("envelope", "electrical", "general"), default="general"),
+    "load_pct": Number(lo=0.0, lo_open=True, hi=200.0, help="electrical: load during the survey, % of rating"),
+    "ambient_c": Celsius(help="electrical: ambient air near the equipment [C]"),
+}, required=("name", "path"), help="one thermal stack")
+
+SCHEMA = Mapping(keys={
+    "survey": Mapping(keys={
+        "title": String(),
+        "site": String(),
+        "date": String(),
+        "operator": String(),
+        "indoor_air_c": Celsius(lo=-30.0, hi=60.0),
+        "outdoor_air_c": Celsius(lo=-60.0, hi=60.0),
+        "indoor_relative_humidity_pct": Number(lo=0.0, hi=100.0),
+        "building_use": String(choices=("storage", "office", "retail", "dwelling", "school", "residential",
+                                        "sports-hall", "kitchen", "swimming-pool", "laundry")),
+        "critical_temperature_factor": Number(lo=0.0, hi=1.0),
+    }),
+    "camera": CAMERA,
+    "conditions": CONDITIONS,
+    "uncertainty": Mapping(keys={
+        "emissivity": Number(lo=0.0, hi=0.5), "reflected_temperature_k": Number(lo=0.0, hi=100.0),
+        "air_temperature_k": Number(lo=0.0, hi=50.0), "relative_humidity_pct": Number(lo=0.0, hi=50.0),
+        "distance_m": Number(lo=0.0, hi=100.0), "camera_k": Number(lo=0.0, hi=20.0),
+        "limit_k": Number(lo=0.0, lo_open=True, help="flag regions whose expanded uncertainty exceeds this"),
+    }, help="standard uncertainties of the inputs (GUM)"),
+    "materials": FilePath(help="extra material library YAML"),
+    "stacks": ListOf(item=STACK, min_items=1),
+    "output": Mapping(keys={
+        "dir": String(default="out"),
+        "formats": ListOf(item=String(choices=("tiff", "netcdf", "zarr")), default=["tiff"]),
+        "report": Bool(default=True),
+        "frame_chunk": Number(lo=1, integer=True, default=32),
+    }),
+}, required=("camera", "stacks"))
+
+
+def json_schema():
+    """JSON Schema (draft 2020-12) of the config, for editors."""
+    d = SCHEMA.json()
+    d["$schema"] = "https://json-schema.org/draft/2020-12/schema"
+    d["title"] = "irpipe survey config"
+    return d
+
+
+@dataclass
+class Config:
+    """A validated config: ``data`` holds values with defaults filled in."""
+
+    data: dict
+    path: Path
+    marks: _Marks
+    ctx: Ctx
+
+    @property
+    def base_dir(self):
+        return self.path.parent
+
+    def fail(self, keypath, msg):
+        self.ctx.fail(keypath, msg)
+
+
+def load_config(path) -> Config:
+    """Read and validate a survey config; raises ConfigError naming file, line and key."""
+    path = Path(path)
+    if not path.exists():
+        raise ConfigError(f"{path}: config file not found; give the path to a survey YAML")
+    if not path.is_file():
+        raise ConfigError(f"{path}: not a regular file; give the path to a survey YAML")
+    try:
+        text = path.read_text(encoding="utf-8")
+    except UnicodeDecodeError:
+        raise ConfigError(f"{path}: not a text file (not UTF-8); give the path to a survey YAML") from None
+    except OSError as exc:
+        raise ConfigError(f"{path}: cannot read ({exc.strerror})") from None
+    data, marks = load_yaml(text, path.name)
+    ctx = Ctx(path.name, marks, path.resolve().parent)
+    if not isinstance(data, dict):
+        raise ConfigError(f"{path.name} line 1: expected a mapping with keys camera, stacks, ...; got {type(data).__name__}")
+    checked = SCHEMA.check(data, [], ctx)
+    cfg = Config(checked, path.resolve(), marks, ctx)
+    _cross_checks(cfg)
+    return cfg
+
+
+def _cross_checks(cfg: Config):
+    d = cfg.data
+    cam = d["camera"]
+    if "spectral_band_um" not in cam and "spectral_response" not in cam:
+        cfg.fail(["camera"], "give spectral_band_um: [lo, hi] or spectral_response: file.csv")
+    if cam["input"] == "counts" and "calibration" not in cam:
+        cfg.fail(["camera"], "input is counts: give calibration: {model: linear, gain: ..., offset_counts: ...}")
+    if cam["input"] == "apparent_temperature":
+        for k in ("raw_scale", "raw_offset"):
+            if cam.get(k) is None:
+                cfg.fail(["camera"], f"input is apparent_temperature: give {k} (kelvin = raw * raw_scale + raw_offset)")
+    if ("gain_map" in cam) != ("offset_map" in cam):
+        cfg.fail(["camera"], "give both gain_map and offset_map for non-uniformity correction, or neither")
+    names = set()
+    for i, st in enumerate(d["stacks"]):
+        if st["name"] in names:
+            cfg.fail(["stacks", i, "name"], f"stack name '{st['name']}' used twice; names must be unique")
+        names.add(st["name"])
+        rnames = set()
+        for j, r in enumerate(st.get("regions", [])):
+            kinds = [k for k in ("rect", "polygon", "ellipse", "mask") if k in r]
+            if len(kinds) != 1:
+                cfg.fail(["stacks", i, "regions", j], "give exactly one of rect, polygon, ellipse, mask")
+            if "rect" in r and len(r["rect"]) != 4:
+                cfg.fail(["stacks", i, "regions", j, "rect"], "expected [row0, col0, row1, col1]")
+            if r["name"] in rnames:
+                cfg.fail(["stacks", i, "regions", j, "name"], f"region name '{r['name']}' used twice in this stack")
+            rnames.add(r["name"])
+        for sk in ("hotspots", "coldspots"):
+            sp = st.get(sk)
+            if not sp:
+                continue
+            ref = sp.get("reference")
+            if ref and ref != "median" and ref not in rnames:
+                cfg.fail(["stacks", i, sk, "reference"], f"'{ref}' is not a region of this stack nor 'median'; regions: {', '.join(sorted(rnames)) or 'none'}")
+        cond = merged_conditions(d, i)
+        refl = cond.get("reflected_temperature_c")
+        if isinstance(refl, dict) and refl["reflector"] not in rnames:
+            cfg.fail(["stacks", i, "conditions", "reflected_temperature_c", "reflector"],
+                     f"'{refl['reflector']}' is not a region of this stack; regions: {', '.join(sorted(rnames)) or 'none'}")
+        for key in ("emissivity", "reflected_temperature_c", "air_temperature_c"):
+            if key not in cond:
+                cfg.fail(["stacks", i], f"no {key} for this stack: set it under conditions or the stack's conditions")
+        forced = "transmittance" in cond.get("atmosphere", {})
+        if cond.get("distance_m", 0) > 0 and not forced and "relative_humidity_pct" not in cond:
+            cfg.fail(["stacks", i], "distance_m > 0 needs relative_humidity_pct (or atmosphere: {transmittance: ...})")
+
+
+def merged_conditions(data: dict, index: int) -> dict:
+    """Survey-wide conditions overridden key by key by the stack's own."""
+    base = dict(data.get("conditions", {}))
+    own = data["stacks"][index].get("conditions", {})
+    for k, v in own.items():
+        if k == "atmosphere" and isinstance(v, dict):
+            base[k] = {**base.get(k, {}), **v}
+        else:
+            base[k] = v
+    return base

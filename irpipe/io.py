@@ -1,0 +1,267 @@
+"""All file input and output: TIFF stacks and maps in, arrays and reports out.
+
+Every output is written to a temporary file in its destination folder, flushed, synced and
+renamed into place, so a failure never leaves a half-written file nor touches the
+complete output of an earlier run. Physics modules never open files; this one does.
+"""
+from __future__ import annotations
+
+import contextlib
+import csv
+import hashlib
+import json
+import os
+import tempfile
+from pathlib import Path
+
+import numpy as np
+
+from .errors import InputDataError, OutputError, StackError
+
+TIFF_MAGIC = (b"II*\x00", b"MM\x00*", b"II+\x00", b"MM\x00+")
+
+
+# --- stacks -----------------------------------------------------------------------------
+
+class StackReader:
+    """A multi-frame TIFF stack opened for streaming, as (frames, rows, cols).
+
+    Pages are read in chunks of frames; nothing beyond the current chunk is held.
+    Raises StackError (one line, naming the file) for a missing, non-TIFF, truncated or
+    wrongly shaped file.
+    """
+
+    def __init__(self, path, label="stack"):
+        import tifffile
+
+        self.path = Path(path)
+        self.label = label
+        _check_tiff_file(self.path, label)
+        try:
+            self._tif = tifffile.TiffFile(str(self.path))
+            pages = self._tif.pages
+            first = pages.first if hasattr(pages, "first") else pages[0]
+            n = len(pages)
+        except Exception as exc:  # tifffile raises many kinds
+            raise StackError(f"{self.path}: {label} is not a readable TIFF ({_short(exc)}); "
+                             "copy the file from the camera card again") from None
+        shape = first.shape
+        if len(shape) != 2 or any(p.shape != shape for p in _iter_pages_light(self._tif, n)):
+            self.close()
+            ndim = len(shape) + (1 if n > 1 else 0)
+            raise StackError(f"{self.path}: {label} must be a stack of 2-D single-channel frames "
+                             f"(frames, rows, cols); found pages of shape {shape} ({ndim}-D data)")
+        series = self._tif.series[0] if self._tif.series else None
+        if series is not None and len(series.shape) > 3:
+            self.close()
+            raise StackError(f"{self.path}: {label} has {len(series.shape)}-D data {tuple(series.shape)}; "
+                             "expected (frames, rows, cols)")
+        self.frames = n
+        self.shape = (n,) + tuple(shape)
+        self.dtype = np.dtype(first.dtype)
+        self.metadata = _page_description(first)
+
+    def read(self, start, stop):
+        """Frames [start, stop) as an ndarray of shape (stop-start, M, N)."""
+        out = np.empty((stop - start,) + self.shape[1:], dtype=self.dtype)
+        try:
+            for k, i in enumerate(range(start, stop)):
+                self._tif.pages[i].asarray(out=out[k])
+        except Exception as exc:
+            raise StackError(f"{self.path}: {self.label} frame {i} cannot be decoded ({_short(exc)}); "
+                             "the file is probably truncated: copy it from the camera card again") from None
+        return out
+
+    def chunks(self, size):
+        for s in range(0, self.frames, size):
+            yield s, self.read(s, min(self.frames, s + size))
+
+    def close(self):
+        with contextlib.suppress(Exception):
+            self._tif.close()
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+
+
+def _iter_pages_light(tif, n):
+    # page shapes without decoding image data
+    for i in range(n):
+        yield tif.pages[i]
+
+
+def _page_description(page):
+    try:
+        return page.description or ""
+    except Exception:
+        return ""
+
+
+def _short(exc):
+    return str(exc).splitlines()[0][:160] if str(exc) else type(exc).__name__
+
+
+def _check_tiff_file(path: Path, label):
+    if not path.exists():
+        raise StackError(f"{path}: {label} not found; check the path (relative to the config file)")
+    if not path.is_file():
+        raise StackError(f"{path}: {label} is not a regular file")
+    try:
+        with path.open("rb") as fh:
+            head = fh.read(8)
+    except OSError as exc:
+        raise StackError(f"{path}: {label} cannot be read ({exc.strerror})") from None
+    if len(head) < 8:
+        raise StackError(f"{path}: {label} is empty or truncated ({len(head)} bytes); copy it again")
+    if head[:4] not in TIFF_MAGIC:
+        raise StackError(f"{path}: {label} is not a TIFF file (starts with {head[:4]!r}); "
+                         "export the stack as multi-frame TIFF")
+
+
+def read_map(path, shape, label, kind="float"):
+    """Read a single-frame TIFF map and check its (rows, cols) against the stack's."""
+    with StackReader(path, label) as r:
+        if r.frames != 1:
+            raise InputDataError(f"{path}: {label} has {r.frames} frames; expected a single-frame map")
+        a = r.read(0, 1)[0]
+    if tuple(a.shape) != tuple(shape):
+        raise InputDataError(f"{path}: {label} has shape {a.shape[0]}x{a.shape[1]} (rows x cols) but the "
+                             f"stack is {shape[0]}x{shape[1]}; make the map for this stack")
+    if kind == "int" and not np.issubdtype(a.dtype, np.integer):
+        if not np.all(np.isfinite(a)) or np.any(a != np.round(a)):
+            raise InputDataError(f"{path}: {label} must hold whole-number labels; found fractional or NaN values")
+        a = a.astype(np.int64)
+    return a
+
+
+def read_spectral_response(path):
+    """CSV with header columns wavelength_um, response -> (wavelength [m], response)."""
+    path = Path(path)
+    try:
+        with path.open(newline="") as fh:
+            rows = list(csv.DictReader(fh))
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputDataError(f"{path}: spectral response cannot be read ({exc}); give a CSV file") from None
+    if not rows or not {"wavelength_um", "response"} <= set(rows[0]):
+        raise InputDataError(f"{path}: spectral response needs a header line 'wavelength_um,response'")
+    try:
+        wl = np.array([float(r["wavelength_um"]) for r in rows]) * 1e-6
+        resp = np.array([float(r["response"]) for r in rows])
+    except (TypeError, ValueError) as exc:
+        raise InputDataError(f"{path}: spectral response has a non-numeric value ({exc})") from None
+    return wl, resp
+
+
+def sha256(path, bufsize=1 << 20):
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for blk in iter(lambda: fh.read(bufsize), b""):
+            h.update(blk)
+    return h.hexdigest()
+
+
+# --- atomic outputs ---------------------------------------------------------------------
+
+@contextlib.contextmanager
+def atomic_path(dest):
+    """Yield a temporary path beside ``dest``; rename it onto ``dest`` only on success."""
+    dest = Path(dest)
+    dest.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{dest.name}.", suffix=".part", dir=dest.parent)
+    os.close(fd)
+    tmp = Path(tmp)
+    try:
+        yield tmp
+        if tmp.is_file():
+            with open(tmp, "rb+") as fh:
+                os.fsync(fh.fileno())
+        os.replace(tmp, dest)
+    except BaseException:
+        with contextlib.suppress(Exception):
+            if tmp.is_dir():
+                import shutil
+                shutil.rmtree(tmp)
+            else:
+                tmp.unlink()
+        raise
+
+
+def write_text_atomic(dest, text):
+    try:
+        with atomic_path(dest) as tmp:
+            tmp.write_text(text, encoding="utf-8")
+    except OSError as exc:
+        raise OutputError(f"{dest}: cannot write ({exc.strerror}); free disk space or choose another --out") from None
+
+
+def write_json_atomic(dest, obj):
+    write_text_atomic(dest, json.dumps(obj, indent=2, sort_keys=False, default=_json_default) + "\n")
+
+
+def _json_default(o):
+    if isinstance(o, (np.floating,)):
+        return None if not np.isfinite(o) else float(o)
+    if isinstance(o, np.integer):
+        return int(o)
+    if isinstance(o, np.ndarray):
+        return o.tolist()
+    if isinstance(o, Path):
+        return str(o)
+    raise TypeError(f"not JSON serialisable: {type(o).__name__}")
+
+
+class StackWriter:
+    """Streaming float32 TIFF writer for (F, M, N) results, atomic on ``commit``.
+
+    Frames are appended chunk by chunk as one contiguous series; ``description`` (JSON
+    text) goes into the first page's ImageDescription.
+    """
+
+    def __init__(self, dest, shape, description="", dtype=np.float32):
+        import tifffile
+
+        self.dest = Path(dest)
+        self.shape = shape
+        self.dtype = np.dtype(dtype)
+        self._ctx = atomic_path(self.dest)
+        self.tmp = self._ctx.__enter__()
+        self._tw = tifffile.TiffWriter(str(self.tmp), bigtiff=_needs_bigtiff(shape, self.dtype))
+        self._written = 0
+        self._description = description
+
+    def write(self, chunk):
+        chunk = np.ascontiguousarray(chunk, dtype=self.dtype)
+        try:
+            for k in range(chunk.shape[0]):
+                if self._written == 0:
+                    self._tw.write(chunk[k], contiguous=True, description=self._description,
+                                   metadata=None, photometric="minisblack")
+                else:
+                    self._tw.write(chunk[k], contiguous=True, metadata=None, photometric="minisblack")
+                self._written += 1
+        except OSError as exc:
+            self.abort()
+            raise OutputError(f"{self.dest}: cannot write ({exc.strerror}); free disk space or choose another --out") from None
+
+    def commit(self):
+        self._tw.close()
+        self._ctx.__exit__(None, None, None)
+
+    def abort(self):
+        with contextlib.suppress(Exception):
+            self._tw.close()
+        with contextlib.suppress(BaseException):
+            self._ctx.__exit__(RuntimeError, RuntimeError("aborted"), None)
+
+
+def _needs_bigtiff(shape, dtype):
+    return int(np.prod(shape)) * dtype.itemsize > 3_900_000_000
+
+
+def write_tiff_atomic(dest, array, description=""):
+    w = StackWriter(dest, array.shape, description, dtype=array.dtype)
+    w.write(array if array.ndim == 3 else array[None])
+    w.commit()

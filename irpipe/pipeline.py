@@ -1,0 +1,479 @@
+"""The pipeline: read a validated config, prepare each stack, stream its frames through
+the stage chain, and write the outputs and the report.
+
+Order of work: (1) the whole config is validated and every input is opened and checked
+before any output is written (``plan``); (2) stacks run one after another, each writing
+only temporary files until it completes; (3) the report and the run manifest are written
+last, atomically.
+"""
+from __future__ import annotations
+
+import datetime as _dt
+import hashlib
+import json
+import sys
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from . import __version__
+from .config import Config, load_config, merged_conditions
+from .constants import STANDARD_PRESSURE, ZERO_CELSIUS
+from .correction import CameraModel, MeasurementModel
+from .emissivity import EmissivityField, material_emissivity, oblique_factor
+from .errors import ConfigError, InputDataError, IrpipeError
+from .io import StackReader, read_map, read_spectral_response, sha256, write_json_atomic
+from .radiometry import SpectralResponse
+from .regions import geometry_problem, region_mask
+from .stages import Chunk, StackContext, build_chain
+
+DEFAULT_RANGE_C = (-60.0, 650.0)
+MANIFEST = "manifest.json"
+REPORT_SCHEMA = "irpipe.report/1"
+
+
+# --- shared survey-level objects ------------------------------------------------------
+
+def load_materials(cfg: Config):
+    """The packaged material library, extended/overridden by ``materials:`` in the config."""
+    import yaml
+    from importlib import resources
+
+    lib = yaml.safe_load(resources.files("irpipe").joinpath("data/materials.yaml").read_text())
+    if "materials" in cfg.data:
+        p = cfg.data["materials"]
+        try:
+            extra = yaml.safe_load(p.read_text())
+        except (yaml.YAMLError, UnicodeDecodeError) as exc:
+            raise ConfigError(f"{p}: material library is not valid YAML ({str(exc).splitlines()[0]})") from None
+        if not isinstance(extra, dict):
+            raise ConfigError(f"{p}: material library must map names to {{emissivity: ..., source: ...}}")
+        for name, entry in extra.items():
+            e = entry.get("emissivity") if isinstance(entry, dict) else None
+            if not isinstance(e, (int, float)) or not 0 < e <= 1:
+                raise ConfigError(f"{p}, {name}.emissivity: expected a number in (0, 1], got {e!r}")
+        lib.update(extra)
+    return lib
+
+
+def camera_model(cfg: Config):
+    """Spectral response and signal model from the camera section."""
+    cam = cfg.data["camera"]
+    if "spectral_response" in cam:
+        try:
+            wl, resp = read_spectral_response(cam["spectral_response"])
+            response = SpectralResponse.tabulated(wl, resp, description=cam["spectral_response"].name)
+        except ValueError as exc:
+            raise InputDataError(f"{cam['spectral_response']}: {exc}") from None
+    else:
+        lo, hi = cam["spectral_band_um"]
+        response = SpectralResponse.rectangular(lo * 1e-6, hi * 1e-6)
+    cal = resolve_calibration(cfg)
+    if cam["input"] == "counts" and cal["model"] == "sakuma-hattori":
+        return CameraModel(response, "sakuma-hattori", (cal["A_um"] * 1e-6, cal["B_umK"] * 1e-6, cal["C"])), cal
+    return CameraModel(response, "band"), cal
+
+
+def resolve_calibration(cfg: Config):
+    cam = cfg.data["camera"]
+    if cam["input"] == "apparent_temperature":
+        return {"model": "apparent_temperature", "raw_scale": cam["raw_scale"], "raw_offset": cam["raw_offset"],
+                "offset_counts": 0.0}
+    cal = dict(cam["calibration"])
+    if "file" in cal:
+        from .config import CALIBRATION, Ctx, load_yaml
+        path = cal["file"]
+        data, marks = load_yaml(path.read_text(), path.name)
+        inner = data.get("calibration", data) if isinstance(data, dict) else data
+        cal = CALIBRATION.check(inner, ["calibration"], Ctx(path.name, marks, path.parent))
+        if isinstance(data, dict) and "gain_map" in data and "gain_map" not in cam:
+            cam["gain_map"] = path.parent / data["gain_map"]
+            cam["offset_map"] = path.parent / data["offset_map"]
+    cal.setdefault("offset_counts", 0.0)
+    return cal
+
+
+def path_transmittance(cond, response, where):
+    """Spectral (or forced flat) transmittance of the stack's path, and a description."""
+    atm = cond.get("atmosphere", {})
+    d = cond.get("distance_m", 0.0)
+    if "transmittance" in atm:
+        return float(atm["transmittance"]), f"forced flat transmittance {atm['transmittance']:g}"
+    if d == 0:
+        return 1.0, "no path (distance 0)"
+    from .atmosphere import spectral_transmittance
+
+    p = atm.get("pressure_kpa", STANDARD_PRESSURE / 1000) * 1000.0
+    try:
+        tau = spectral_transmittance(response.wavelength, d, cond["air_temperature_c"] + ZERO_CELSIUS,
+                                     cond["relative_humidity_pct"] / 100.0, p)
+    except ValueError as exc:
+        raise ConfigError(f"{where}: {exc}") from None
+    return tau, f"LOWTRAN7-derived spectral transmittance, {d:g} m, {cond['air_temperature_c']:g} C, " \
+                f"{cond['relative_humidity_pct']:g} % RH, {p / 1000:g} kPa"
+
+
+# --- preparing one stack --------------------------------------------------------------
+
+def _fail(cfg, keypath, msg):
+    cfg.fail(keypath, msg)
+
+
+def prepare_stack(cfg: Config, i: int, out_dir: Path, camera, cal, materials, options):
+    """Open a stack, read its maps and masks, resolve conditions; no output written."""
+    st = cfg.data["stacks"][i]
+    cond = merged_conditions(cfg.data, i)
+    reader = StackReader(st["path"], f"stack '{st['name']}'")
+    shape, dtype = reader.shape, reader.dtype
+    cam = cfg.data["camera"]
+    if cam["input"] == "counts" and not np.issubdtype(dtype, np.integer):
+        reader.close()
+        raise InputDataError(f"{st['path']}: stack '{st['name']}' holds {dtype} values but camera.input is "
+                             "counts; raw counts are integers: set camera.input: apparent_temperature "
+                             "(with raw_scale, raw_offset) or export raw counts")
+    ctx = StackContext(name=st["name"], index=i, cfg=cfg, stack=st, conditions=cond, shape=shape,
+                       dtype=dtype, out_dir=out_dir, camera=camera, materials=materials, options=options)
+    ctx.shared["reader"] = reader
+    ctx.shared["calibration"] = cal
+    key = ["stacks", i]
+    try:
+        _prepare_maps(ctx, cfg, key, cam)
+        _prepare_regions(ctx, cfg, key, st)
+        _prepare_conditions(ctx, cfg, key, cond)
+    except BaseException:
+        reader.close()
+        raise
+    return ctx
+
+
+def _prepare_maps(ctx, cfg, key, cam):
+    rows_cols = ctx.shape[1:]
+    if "gain_map" in cam:
+        g = read_map(cam["gain_map"], rows_cols, "camera.gain_map").astype(np.float64)
+        o = read_map(cam["offset_map"], rows_cols, "camera.offset_map").astype(np.float64)
+        if not (np.all(np.isfinite(g)) and np.all(np.isfinite(o))):
+            raise InputDataError(f"{cam['gain_map']}: gain/offset maps contain NaN or infinite values; "
+                                 "recompute them with 'irpipe calibrate'")
+        ctx.shared["nuc"] = (g, o)
+    if "bad_pixel_mask" in cam:
+        m = read_map(cam["bad_pixel_mask"], rows_cols, "camera.bad_pixel_mask") != 0
+        if m.all():
+            raise InputDataError(f"{cam['bad_pixel_mask']}: bad-pixel mask flags every pixel; "
+                                 "it should be non-zero only at bad pixels")
+        ctx.shared["bad_pixel_mask"] = m if m.any() else None
+
+
+def _prepare_regions(ctx, cfg, key, st):
+    rows_cols = ctx.shape[1:]
+    for j, r in enumerate(st.get("regions", [])):
+        prob = None if "mask" in r else geometry_problem(rows_cols, r)
+        if prob:
+            _fail(cfg, key + ["regions", j], prob)
+        img = read_map(r["mask"], rows_cols, f"region '{r['name']}' mask") if "mask" in r else None
+        m = region_mask(rows_cols, r, img)
+        if not m.any():
+            _fail(cfg, key + ["regions", j], f"region '{r['name']}' covers no pixel")
+        ctx.masks[r["name"]] = m
+        ctx.region_cfg[r["name"]] = r
+
+
+def _prepare_conditions(ctx, cfg, key, cond):
+    ckey = key + ["conditions"]
+    ctx.emissivity = resolve_emissivity(cfg, ckey, cond["emissivity"], ctx.shape[1:], ctx.materials)
+    if "view_angle_deg" in cond:
+        f = oblique_factor(cond["view_angle_deg"], cond.get("refractive_index", 1.5))
+        ctx.emissivity = ctx.emissivity.scaled(float(f))
+    refl = cond["reflected_temperature_c"]
+    if isinstance(refl, dict):
+        ctx.shared["reflected_temperature_k"] = None
+        ctx.shared["reflector_mask"] = ctx.masks[refl["reflector"]].ravel()
+    else:
+        ctx.shared["reflected_temperature_k"] = refl + ZERO_CELSIUS
+    tau, desc = path_transmittance(cond, ctx.camera.response, f"{cfg.path.name}, stacks[{ctx.index}] conditions")
+    rng = cfg.data["camera"].get("range_c") or DEFAULT_RANGE_C
+    try:
+        ctx.model = MeasurementModel(ctx.camera, tau, (rng[0] + ZERO_CELSIUS, rng[1] + ZERO_CELSIUS))
+    except ValueError as exc:
+        raise ConfigError(f"{cfg.path.name}, camera: {exc}; check the calibration coefficients") from None
+    ctx.report["conditions"] = {
+        "emissivity": ctx.emissivity.description,
+        "reflected_temperature_c": refl if not isinstance(refl, dict) else f"reflector region '{refl['reflector']}'",
+        "air_temperature_c": cond["air_temperature_c"],
+        "relative_humidity_pct": cond.get("relative_humidity_pct"),
+        "distance_m": cond.get("distance_m", 0.0),
+        "path": desc,
+        "band_transmittance_300k": round(ctx.model.describe(), 5),
+        "view_angle_deg": cond.get("view_angle_deg"),
+    }
+
+
+def resolve_emissivity(cfg, keypath, spec, rows_cols, materials) -> EmissivityField:
+    """Turn the config's emissivity spec into an EmissivityField (reads maps)."""
+    def lib(name, kp):
+        try:
+            return material_emissivity(name, materials)
+        except KeyError as exc:
+            _fail(cfg, kp, exc.args[0])
+
+    def unc(name):
+        return float(materials[name].get("uncertainty", 0.0)) if isinstance(name, str) else 0.0
+
+    if isinstance(spec, (int, float)):
+        return EmissivityField(value=float(spec), description=f"{spec:g}")
+    if isinstance(spec, str):
+        return EmissivityField(value=lib(spec, keypath + ["emissivity"]), description=spec, uncertainty=unc(spec))
+    if "map" in spec:
+        m = read_map(spec["map"], rows_cols, "emissivity map").astype(np.float64)
+        bad = ~np.isfinite(m) | (m <= 0) | (m > 1)
+        if bad.any():
+            r, c = np.argwhere(bad)[0]
+            raise InputDataError(f"{spec['map']}: emissivity map has {int(bad.sum())} value(s) outside (0, 1] or NaN "
+                                 f"(first at row {r}, col {c}: {m[r, c]!r}); emissivity must be in (0, 1]")
+        return EmissivityField(map=m, description=f"map {spec['map'].name}")
+    labels = read_map(spec["labels"], rows_cols, "emissivity label image", kind="int")
+    present = np.unique(labels)
+    table = spec["values"]
+    default = spec.get("default")
+    missing = [int(v) for v in present if int(v) not in table]
+    if missing and default is None:
+        _fail(cfg, keypath + ["emissivity", "values"],
+              f"label(s) {', '.join(map(str, missing[:10]))} of {spec['labels'].name} have no emissivity; "
+              "add them to values or give default")
+    vals, unc_vals, desc = [], [], []
+    lut = np.zeros(int(present.max()) - int(present.min()) + 1, np.int64)
+    for k, v in enumerate(present):
+        item = table.get(int(v), default)
+        e = lib(item, keypath + ["emissivity", "values", int(v)]) if isinstance(item, str) else float(item)
+        vals.append(e)
+        unc_vals.append(unc(item))
+        desc.append(f"{int(v)}: {item}" + (f" ({e:g})" if isinstance(item, str) else ""))
+        lut[int(v) - int(present.min())] = k
+    index = lut[labels - int(present.min())].astype(np.int32)
+    unused = sorted(set(table) - set(int(v) for v in present))
+    d = f"labels {spec['labels'].name}: " + ", ".join(desc)
+    if unused:
+        d += f" (labels {unused} not in the image)"
+    return EmissivityField(index=index, values=np.asarray(vals), description=d,
+                           uncertainty=np.asarray(unc_vals)[index])
+
+
+# --- running --------------------------------------------------------------------------
+
+@dataclass
+class RunResult:
+    report: dict
+    failed: list = field(default_factory=list)   # (stack name, message)
+    skipped: list = field(default_factory=list)
+    out_dir: Path | None = None
+
+    @property
+    def exit_code(self):
+        if not self.failed:
+            return 0
+        return max(getattr(e, "exit_code", 1) for _, _, e in self.failed)
+
+
+def _stack_fingerprint(cfg: Config, i: int, input_hashes: dict):
+    st = cfg.data["stacks"][i]
+    blob = json.dumps({"camera": cfg.data["camera"], "conditions": merged_conditions(cfg.data, i),
+                       "stack": st, "survey": cfg.data.get("survey", {}),
+                       "uncertainty": cfg.data.get("uncertainty", {}), "inputs": input_hashes,
+                       "version": __version__}, sort_keys=True, default=str)
+    return hashlib.sha256(blob.encode()).hexdigest()
+
+
+def _inputs_of(cfg: Config, i: int):
+    """Files a stack depends on."""
+    st = cfg.data["stacks"][i]
+    files = [st["path"]]
+    cam = cfg.data["camera"]
+    for k in ("spectral_response", "gain_map", "offset_map", "bad_pixel_mask"):
+        if k in cam:
+            files.append(cam[k])
+    if isinstance(cam.get("calibration"), dict) and "file" in cam["calibration"]:
+        files.append(cam["calibration"]["file"])
+    e = merged_conditions(cfg.data, i)["emissivity"]
+    if isinstance(e, dict):
+        files.append(e.get("map") or e.get("labels"))
+    files += [r["mask"] for r in st.get("regions", []) if "mask" in r]
+    if "materials" in cfg.data:
+        files.append(cfg.data["materials"])
+    return files
+
+
+def plan(cfg: Config, out_dir: Path, options=None):
+    """Validate every stack's inputs against the config before any work (no outputs)."""
+    options = options or {}
+    camera, cal = camera_model(cfg)
+    materials = load_materials(cfg)
+    contexts = []
+    for i in range(len(cfg.data["stacks"])):
+        try:
+            ctx = prepare_stack(cfg, i, out_dir, camera, cal, materials, options)
+        except InputDataError as exc:
+            if not options.get("keep_going"):
+                for c in contexts:
+                    c.shared["reader"].close()
+                raise
+            contexts.append((i, exc))
+            continue
+        ctx.shared["reader"].close()
+        contexts.append(ctx)
+    return camera, cal, materials, contexts
+
+
+def run(config_path, out_dir=None, *, resume=False, keep_going=False, quiet=True, workers=None,
+        scheduler=None, write_report=True, frame_chunk=None) -> RunResult:
+    """Run a survey config; returns a RunResult. Raises ConfigError / InputDataError when
+    the run cannot start or (without ``keep_going``) a stack fails."""
+    cfg = load_config(config_path)
+    out = Path(out_dir) if out_dir else (cfg.base_dir / cfg.data["output"]["dir"])
+    options = {"keep_going": keep_going, "quiet": quiet, "workers": workers, "scheduler": scheduler,
+               "frame_chunk": frame_chunk or cfg.data["output"]["frame_chunk"],
+               "formats": cfg.data["output"]["formats"]}
+    camera, cal, materials, contexts = plan(cfg, out, options)
+    out.mkdir(parents=True, exist_ok=True)
+    old_manifest = _read_json(out / MANIFEST)
+    old_stacks = {s["name"]: s for s in (old_manifest or {}).get("stacks", [])}
+    manifest = {"software": "irpipe", "version": __version__, "config": str(cfg.path.name),
+                "config_sha256": sha256(cfg.path), "started_utc": _now(), "stacks": []}
+    results, failed, skipped = [], [], []
+    progress = _progress(quiet)
+    for item in contexts:
+        if isinstance(item, tuple):
+            i, exc = item
+            name = cfg.data["stacks"][i]["name"]
+            failed.append((name, str(exc), exc))
+            manifest["stacks"].append({"name": name, "status": "failed", "error": str(exc)})
+            results.append({"name": name, "status": "failed", "error": str(exc)})
+            continue
+        ctx = item
+        hashes = {str(p): sha256(p) for p in _inputs_of(cfg, ctx.index)}
+        fp = _stack_fingerprint(cfg, ctx.index, hashes)
+        prev = old_stacks.get(ctx.name)
+        if resume and prev and prev.get("status") == "done" and prev.get("fingerprint") == fp and \
+                all((out / f).exists() for f in prev.get("outputs", {}).values()):
+            skipped.append(ctx.name)
+            manifest["stacks"].append(prev)
+            results.append(prev["report"])
+            continue
+        try:
+            t0 = time.perf_counter()
+            rep = run_stack(ctx, progress)
+            rep["seconds"] = round(time.perf_counter() - t0, 3)
+        except IrpipeError as exc:
+            failed.append((ctx.name, str(exc), exc))
+            manifest["stacks"].append({"name": ctx.name, "status": "failed", "error": str(exc),
+                                       "inputs": hashes})
+            if not keep_going:
+                _write_manifest(out, manifest, old_manifest, partial=True)
+                raise
+            results.append({"name": ctx.name, "status": "failed", "error": str(exc)})
+            continue
+        manifest["stacks"].append({"name": ctx.name, "status": "done", "fingerprint": fp, "inputs": hashes,
+                                   "outputs": dict(ctx.outputs), "report": rep})
+        results.append(rep)
+    report = build_report(cfg, results)
+    if write_report:
+        write_reports(out, report, contexts)
+    manifest["finished_utc"] = _now()
+    _write_manifest(out, manifest, old_manifest)
+    return RunResult(report, failed, skipped, out)
+
+
+def _write_manifest(out, manifest, old, partial=False):
+    if partial and old:
+        # keep the record of complete stacks from the earlier run that this run did not reach
+        seen = {s["name"] for s in manifest["stacks"]}
+        manifest["stacks"] += [s for s in old.get("stacks", []) if s["name"] not in seen]
+        manifest["interrupted"] = True
+    write_json_atomic(out / MANIFEST, manifest)
+
+
+def _read_json(p):
+    try:
+        return json.loads(Path(p).read_text())
+    except (OSError, ValueError):
+        return None
+
+
+def _now():
+    return _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")
+
+
+def run_stack(ctx: StackContext, progress=None) -> dict:
+    """Stream one stack through its stage chain; returns its report entry."""
+    reader = StackReader(ctx.stack["path"], f"stack '{ctx.name}'")
+    chain = build_chain(ctx)
+    try:
+        for s in chain:
+            s.start(ctx)
+        size = int(ctx.options.get("frame_chunk") or 32)
+        n = ctx.shape[0]
+        for first in range(0, n, size):
+            raw = reader.read(first, min(n, first + size))
+            chunk = Chunk(first, raw)
+            for s in chain:
+                s.process(chunk, ctx)
+            if progress:
+                progress(ctx.name, min(n, first + size), n)
+        for s in chain:
+            s.finish(ctx)
+    except BaseException:
+        for s in chain:
+            try:
+                s.abort(ctx)
+            except Exception:
+                pass
+        raise
+    finally:
+        reader.close()
+    rep = {"name": ctx.name, "status": "done", "path": str(ctx.stack["path"].name), "frames": ctx.shape[0],
+           "rows": ctx.shape[1], "cols": ctx.shape[2], "assessment": ctx.stack.get("assessment", "general")}
+    rep.update(ctx.report)
+    rep["outputs"] = dict(ctx.outputs)
+    return rep
+
+
+def _progress(quiet):
+    if quiet or not sys.stderr.isatty():
+        return None
+
+    def show(name, done, total):
+        w = 30
+        k = int(w * done / max(total, 1))
+        sys.stderr.write(f"\r{name[:24]:24s} [{'#' * k}{'.' * (w - k)}] {done}/{total} frames")
+        if done >= total:
+            sys.stderr.write("\n")
+        sys.stderr.flush()
+    return show
+
+
+# --- report -----------------------------------------------------------------------------
+
+CAUTIONS = [
+    "Findings on electrical equipment are indications for a licensed electrician to assess and repair; "
+    "do not open, touch or load energised equipment on the strength of this report.",
+    "Structural, moisture, mould and safety findings must be assessed by a qualified professional before "
+    "any decision or repair.",
+    "Local building codes, electrical regulations and licensed professional practice prevail over this report.",
+    "Temperatures are surface temperatures inferred from infrared radiation. They depend on the emissivity, "
+    "reflected temperature and path conditions stated for each stack; where these are uncertain (shiny "
+    "metal, glazing, low emissivity, oblique views, sun or wind before the survey) the figures can be wrong "
+    "by several kelvin or more.",
+    "Thermography shows surface temperature patterns, not their cause: missing insulation, air leakage, "
+    "moisture and thermal bridges can look alike and need confirmation by other means.",
+]
+
+
+def build_report(cfg: Config, stacks: list) -> dict:
+    survey = dict(cfg.data.get("survey", {}))
+    return {"schema": REPORT_SCHEMA, "software": {"name": "irpipe", "version": __version__},
+            "created_utc": _now(), "config": cfg.path.name, "survey": survey,
+            "warnings": [], "cautions": list(CAUTIONS), "stacks": stacks}
+
+
+def write_reports(out: Path, report: dict, contexts):
+    write_json_atomic(out / "report.json", report)

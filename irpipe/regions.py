@@ -1,0 +1,155 @@
+"""Regions of interest as boolean masks, and streaming statistics over frame chunks.
+
+Geometry is (row, col), as in scikit-image: ``rect`` is [row0, col0, row1, col1]
+half-open like numpy slices; ``polygon`` vertices are [row, col]; ``ellipse`` has a centre
+(row, col) and radii (rows, cols); ``mask`` is any non-zero image.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+# histogram used for percentiles: 0.01 K bins over the inverse-table range
+_HIST_LO_C, _HIST_HI_C, _HIST_STEP = -120.0, 1000.0, 0.01
+
+
+def rect_mask(shape, rect):
+    r0, c0, r1, c1 = (int(v) for v in rect)
+    m = np.zeros(shape, bool)
+    m[max(r0, 0):max(r1, 0), max(c0, 0):max(c1, 0)] = True
+    return m
+
+
+def polygon_mask(shape, vertices):
+    from skimage.draw import polygon2mask
+
+    return polygon2mask(shape, np.asarray(vertices, float))
+
+
+def ellipse_mask(shape, center, radii):
+    from skimage.draw import ellipse
+
+    m = np.zeros(shape, bool)
+    rr, cc = ellipse(center[0], center[1], radii[0], radii[1], shape=shape)
+    m[rr, cc] = True
+    return m
+
+
+def geometry_problem(shape, region):
+    """Return a text describing why ``region`` does not fit an image of ``shape``, or None."""
+    rows, cols = shape
+    if "rect" in region:
+        r0, c0, r1, c1 = region["rect"]
+        if not (0 <= r0 < r1 <= rows and 0 <= c0 < c1 <= cols):
+            return (f"rect {list(region['rect'])} must satisfy 0 <= row0 < row1 <= {rows} and "
+                    f"0 <= col0 < col1 <= {cols} for this {rows}x{cols} stack")
+    if "polygon" in region:
+        v = np.asarray(region["polygon"], float)
+        if v[:, 0].min() < 0 or v[:, 0].max() > rows - 1 or v[:, 1].min() < 0 or v[:, 1].max() > cols - 1:
+            return f"polygon vertices must lie within rows 0..{rows - 1} and cols 0..{cols - 1}"
+    if "ellipse" in region:
+        (r, c), (a, b) = region["ellipse"]["center"], region["ellipse"]["radii"]
+        if r - a < -0.5 or r + a > rows - 0.5 or c - b < -0.5 or c + b > cols - 0.5:
+            return f"ellipse reaches outside the {rows}x{cols} image"
+    return None
+
+
+def region_mask(shape, region, mask_image=None):
+    """Boolean (M, N) mask of one configured region."""
+    if "rect" in region:
+        return rect_mask(shape, region["rect"])
+    if "polygon" in region:
+        return polygon_mask(shape, region["polygon"])
+    if "ellipse" in region:
+        return ellipse_mask(shape, region["ellipse"]["center"], region["ellipse"]["radii"])
+    if mask_image is not None:
+        return np.asarray(mask_image) != 0
+    raise ValueError(f"region {region.get('name')!r} has no geometry")
+
+
+class RegionAccumulator:
+    """Streaming statistics of one region over all frames of a stack.
+
+    Holds O(frames) per-frame summaries and a fixed-size histogram, never the data.
+    Percentiles come from the 0.01 K histogram (resolution 0.01 K).
+    """
+
+    def __init__(self, name, mask):
+        self.name = name
+        self.mask = np.asarray(mask, bool)
+        self.idx = np.flatnonzero(self.mask)
+        self.pixels = int(self.idx.size)
+        self.n = 0
+        self.shift = None
+        self.s1 = 0.0
+        self.s2 = 0.0
+        self.min = np.inf
+        self.max = -np.inf
+        self.min_at = None
+        self.max_at = None
+        self.frames = []
+        self.nbins = int(round((_HIST_HI_C - _HIST_LO_C) / _HIST_STEP))
+        self.hist = np.zeros(self.nbins, np.int64)
+
+    def update(self, chunk_c, first_frame):
+        """Add frames ``chunk_c`` (F, M, N) [C] starting at frame index ``first_frame``."""
+        f = chunk_c.shape[0]
+        v = chunk_c.reshape(f, -1)[:, self.idx].astype(np.float64)   # (F, P)
+        ok = np.isfinite(v)
+        cnt = ok.sum(axis=1)
+        if self.shift is None and cnt.sum():
+            self.shift = float(np.nanmean(v))
+        sh = self.shift or 0.0
+        d = np.where(ok, v - sh, 0.0)
+        self.s1 += float(d.sum())
+        self.s2 += float((d * d).sum())
+        self.n += int(cnt.sum())
+        with np.errstate(invalid="ignore"):
+            fmin = np.where(cnt > 0, np.nanmin(np.where(ok, v, np.inf), axis=1), np.nan)
+            fmax = np.where(cnt > 0, np.nanmax(np.where(ok, v, -np.inf), axis=1), np.nan)
+            fmean = np.where(cnt > 0, d.sum(axis=1) / np.maximum(cnt, 1) + sh, np.nan)
+        for k in range(f):
+            self.frames.append({"frame": first_frame + k, "valid_pixels": int(cnt[k]),
+                                "min_c": _f(fmin[k]), "max_c": _f(fmax[k]), "mean_c": _f(fmean[k])})
+        if cnt.sum():
+            vv = np.where(ok, v, np.inf)
+            j = np.unravel_index(np.argmin(vv), vv.shape)
+            if vv[j] < self.min:
+                self.min = float(vv[j])
+                self.min_at = self._where(first_frame + j[0], j[1])
+            vv = np.where(ok, v, -np.inf)
+            j = np.unravel_index(np.argmax(vv), vv.shape)
+            if vv[j] > self.max:
+                self.max = float(vv[j])
+                self.max_at = self._where(first_frame + j[0], j[1])
+            b = np.clip(((v[ok] - _HIST_LO_C) / _HIST_STEP).astype(np.int64), 0, self.nbins - 1)
+            self.hist += np.bincount(b, minlength=self.nbins)
+
+    def _where(self, frame, p):
+        r, c = np.unravel_index(self.idx[p], self.mask.shape)
+        return {"frame": int(frame), "row": int(r), "col": int(c)}
+
+    def percentile(self, q):
+        if self.n == 0:
+            return None
+        cum = np.cumsum(self.hist)
+        k = int(np.searchsorted(cum, q / 100.0 * self.n))
+        return _HIST_LO_C + (k + 0.5) * _HIST_STEP
+
+    def result(self):
+        """Summary dict for report.json (degrees Celsius)."""
+        if self.n == 0:
+            return {"name": self.name, "pixels": self.pixels, "valid_values": 0, "min_c": None, "max_c": None,
+                    "mean_c": None, "std_c": None, "p05_c": None, "p95_c": None,
+                    "min_at": None, "max_at": None, "frames": self.frames}
+        mean_d = self.s1 / self.n
+        var = max(self.s2 / self.n - mean_d**2, 0.0)
+        return {"name": self.name, "pixels": self.pixels, "valid_values": self.n,
+                "min_c": self.min, "max_c": self.max, "mean_c": mean_d + self.shift,
+                "std_c": float(np.sqrt(var)),
+                "p05_c": self.percentile(5), "p95_c": self.percentile(95),
+                "min_at": self.min_at, "max_at": self.max_at, "frames": self.frames}
+
+
+def _f(x):
+    x = float(x)
+    return x if np.isfinite(x) else None

@@ -1,0 +1,72 @@
+"""Building-envelope assessment per region: temperature factor (ISO 13788 / ISO 10211),
+mould risk (surface RH >= 80 %, ISO 13788) and condensation risk (surface at or below the
+indoor dew point), from the survey's indoor and outdoor air.
+
+The minimum surface temperature of a region is read robustly: the lowest value of the
+frame-averaged image after a 3x3 mean over valid pixels of the region, so detector noise
+(NETD) does not bias the factor low. Reading the minimum over a small area rather than a
+single pixel is common practice (no source)."""
+from __future__ import annotations
+
+import numpy as np
+from scipy import ndimage
+
+from .. import findings
+from . import Stage
+
+USE_KEYS = {"dwelling": "dwelling", "residential": "dwelling", "school": "school", "office": "office",
+            "retail": "retail", "storage": "storage", "sports-hall": "sports_hall", "kitchen": "kitchen",
+            "swimming-pool": "swimming_pool", "laundry": "laundry"}
+
+
+class EnvelopeStage(Stage):
+    name = "envelope"
+
+    @classmethod
+    def applies(cls, ctx):
+        s = ctx.cfg.data.get("survey", {})
+        return ("indoor_air_c" in s and "outdoor_air_c" in s and ctx.masks
+                and ctx.stack.get("assessment", "general") != "electrical")
+
+    def start(self, ctx):
+        self.sum = np.zeros(ctx.shape[1:], np.float64)
+        self.cnt = np.zeros(ctx.shape[1:], np.int64)
+
+    def process(self, chunk, ctx):
+        t = chunk.temperature_c
+        ok = np.isfinite(t)
+        self.sum += np.where(ok, t, 0).sum(0)
+        self.cnt += ok.sum(0)
+
+    def finish(self, ctx):
+        s = ctx.cfg.data["survey"]
+        ti, te = s["indoor_air_c"], s["outdoor_air_c"]
+        rh = s.get("indoor_relative_humidity_pct")
+        crit_default = s.get("critical_temperature_factor")
+        if crit_default is None:
+            crit_default = findings.CRITICAL_TEMPERATURE_FACTORS[USE_KEYS[s.get("building_use", "dwelling")]]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            mean = np.where(self.cnt > 0, self.sum / np.maximum(self.cnt, 1), np.nan)
+        for r in ctx.report.get("regions", []):
+            m = ctx.masks[r["name"]]
+            cfg = ctx.region_cfg[r["name"]]
+            if cfg.get("role", "surface") != "surface":
+                continue
+            ok = m & np.isfinite(mean)
+            if not ok.any():
+                continue
+            k = np.ones((3, 3))
+            num = ndimage.convolve(np.where(ok, mean, 0.0), k, mode="constant")
+            den = ndimage.convolve(ok.astype(float), k, mode="constant")
+            smooth = np.where(ok, num / np.maximum(den, 1), np.nan)
+            tmin = float(np.nanmin(smooth))
+            crit = cfg.get("critical_temperature_factor", crit_default)
+            a = findings.envelope_assessment(tmin, ti, te, rh, critical_factor=crit)
+            r["envelope"] = a
+            for key in ("temperature_factor", "critical_temperature_factor", "mould_risk", "condensation_risk",
+                        "surface_relative_humidity_pct"):
+                r[key] = a.get(key)
+            r["minimum_surface_c"] = tmin
+        ctx.report["envelope_conditions"] = {"indoor_air_c": ti, "outdoor_air_c": te,
+                                            "indoor_relative_humidity_pct": rh,
+                                            "critical_temperature_factor": crit_default}

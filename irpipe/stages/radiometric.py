@@ -1,0 +1,164 @@
+"""Radiometric stage: raw values -> corrected surface temperature [C], per pixel.
+
+Linearisation (calibration model or apparent-temperature export) and the measurement
+equation (``irpipe.correction``) in one pass. Two execution plans give the same numbers:
+
+* lookup plan: integer raw data of at most 16 bits, no per-pixel gain/offset maps, an
+  emissivity that takes a few distinct values (a number or a label image) and constant
+  reflected temperature: every possible raw value is corrected once per distinct
+  emissivity (at most 65536 x labels evaluations, in float64), and each pixel is one
+  table gather. This is what keeps the per-frame cost near the cost of reading the stack.
+* per-pixel plan: anything else (float maps, NUC maps, per-frame reflected temperature),
+  vectorised float32 arithmetic and a no-search inverse table.
+
+Invalid pixels become NaN and are counted by reason (``irpipe.correction.REASONS``).
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from ..constants import ZERO_CELSIUS
+from ..correction import (INVALID_INPUT, NON_PHYSICAL, OUT_OF_RANGE, REASONS, SATURATED, VALID,
+                          MeasurementModel)
+from . import Stage
+
+
+class RadiometricStage(Stage):
+    name = "radiometric"
+
+    def start(self, ctx):
+        cam = ctx.cfg.data["camera"]
+        self.input = cam["input"]
+        cal = ctx.shared["calibration"]
+        self.cal = cal
+        self.model = ctx.model
+        self.nuc = ctx.shared.get("nuc")          # (gain, offset) maps or None
+        self.saturation = cam.get("saturation")
+        if self.saturation is None and np.issubdtype(ctx.dtype, np.integer):
+            self.saturation = np.iinfo(ctx.dtype).max
+        self.refl_k = ctx.shared["reflected_temperature_k"]     # float, or None for reflector
+        self.air_k = ctx.conditions["air_temperature_c"] + ZERO_CELSIUS
+        self.reflector = ctx.shared.get("reflector_mask")
+        self.hist = None
+        eps = ctx.emissivity
+        small_int = np.issubdtype(ctx.dtype, np.integer) and ctx.dtype.itemsize <= 2
+        self.lookup = (small_int and self.nuc is None and eps.distinct() is not None
+                       and self.refl_k is not None)
+        ctx.invalid = {v: 0 for v in REASONS.values()}
+        if self.lookup:
+            self._build_tables(ctx)
+        else:
+            self.eps = eps.as_array(ctx.shape[1:])
+        ctx.report["plan"] = "lookup" if self.lookup else "per-pixel"
+
+    # -- linearisation ---------------------------------------------------------------
+    def signal(self, raw):
+        """Offset-free signal (camera units) and reason codes for raw values ``raw``."""
+        reason = np.zeros(raw.shape, np.uint8)
+        if self.saturation is not None:
+            reason[raw >= self.saturation] = SATURATED
+        if self.input == "apparent_temperature":
+            with np.errstate(invalid="ignore"):
+                t_app = raw.astype(np.float64) * self.cal["raw_scale"] + self.cal["raw_offset"]
+            bad_in = ~np.isfinite(t_app)
+            t_min, t_max = self.model.t_range
+            oor = ~bad_in & ((t_app < t_min) | (t_app > t_max))
+            s = self.model.signal_table.forward_fast(np.where(oor | bad_in, 300.0, t_app))
+        else:
+            x = raw.astype(np.float64)
+            if self.nuc is not None:
+                x = x * self.nuc[0] + self.nuc[1]
+            bad_in = ~np.isfinite(x)
+            s = (x - self.cal["offset_counts"]) / self.cal.get("gain", 1.0)
+            with np.errstate(invalid="ignore"):
+                oor = ~bad_in & ((s < self.model.signal_table.s_min) | (s > self.model.signal_table.s_max))
+        reason[(reason == VALID) & bad_in] = INVALID_INPUT
+        reason[(reason == VALID) & oor] = OUT_OF_RANGE
+        return s, reason
+
+    # -- lookup plan -----------------------------------------------------------------
+    def _build_tables(self, ctx):
+        info = np.iinfo(ctx.dtype)
+        values = np.arange(info.min, info.max + 1, dtype=np.int64)
+        self.base = int(info.min)
+        s, reason = self.signal(values)
+        eps = ctx.emissivity
+        eps_values = [eps.value] if eps.value is not None else list(eps.values)
+        nv = values.size
+        self.lut = np.empty((len(eps_values), nv), np.float32)
+        self.reason_lut = np.empty((len(eps_values), nv), np.uint8)
+        for k, e in enumerate(eps_values):
+            t = self.model.object_temperature(s, e, self.refl_k, self.air_k)
+            r = reason.copy()
+            r[(r == VALID) & ~np.isfinite(t)] = NON_PHYSICAL
+            t = np.where(r == VALID, t - ZERO_CELSIUS, np.nan)
+            self.lut[k] = t
+            self.reason_lut[k] = r
+        self.lut_flat = self.lut.ravel()
+        self.nv = nv
+        if eps.value is None:
+            self.offsets = (eps.index.astype(np.int32) * np.int32(nv) - np.int32(self.base))
+        else:
+            self.offsets = None
+        self.hist = np.zeros(self.lut.size, np.int64)
+
+    def process(self, chunk, ctx):
+        raw = chunk.raw
+        if self.lookup:
+            if self.offsets is None:
+                idx = raw.astype(np.int32) - np.int32(self.base) if self.base else raw
+            else:
+                idx = np.add(raw, self.offsets, dtype=np.int32)
+            chunk.temperature_c = self.lut_flat.take(idx)
+            self.hist += np.bincount(idx.ravel(), minlength=self.hist.size)
+            return
+        s, reason = self.signal(raw)
+        if self.refl_k is None:
+            refl = self._reflector_temperature(s, reason, ctx)
+            chunk.extras["reflected_temperature_k"] = refl.reshape(-1)
+        else:
+            refl = self.refl_k
+        with np.errstate(invalid="ignore", divide="ignore"):
+            t = self.model.object_temperature(s.astype(np.float32), self.eps, refl, self.air_k, dtype=np.float32)
+        reason[(reason == VALID) & ~np.isfinite(t)] = NON_PHYSICAL
+        t -= np.float32(ZERO_CELSIUS)
+        t[reason != VALID] = np.nan
+        counts = np.bincount(reason.ravel(), minlength=len(REASONS) + 1)
+        for code, label in REASONS.items():
+            ctx.invalid[label] += int(counts[code])
+        chunk.temperature_c = t
+
+    def _reflector_temperature(self, s, reason, ctx):
+        """Per-frame reflected temperature from a diffuse-reflector region (ASTM E1862).
+
+        The reflector (emissivity ~0) returns the irradiance it receives: its signal,
+        after removing the path emission, equals G(T_refl). Averaging is done in signal
+        units, because reflected radiance, not temperature, is what adds up.
+        """
+        m = self.reflector
+        f = s.shape[0]
+        vals = s.reshape(f, -1)[:, m.ravel()]
+        ok = reason.reshape(f, -1)[:, m.ravel()] == VALID
+        with np.errstate(invalid="ignore"):
+            mean_s = np.where(ok, vals, 0).sum(1) / np.maximum(ok.sum(1), 1)
+        _, path = self.model.background(1.0, 300.0, self.air_k)
+        g = mean_s - path
+        tr = self.model.path_table.inverse(g)
+        tr = np.where(ok.sum(1) > 0, tr, np.nan)
+        if np.any(~np.isfinite(tr)):
+            bad = int(np.flatnonzero(~np.isfinite(tr))[0])
+            from ..errors import InputDataError
+            raise InputDataError(f"stack '{ctx.name}' frame {bad}: the reflector region has no valid "
+                                 "pixels or a non-physical signal; check its position and the camera settings")
+        ctx.shared.setdefault("reflected_series_k", []).extend(tr.tolist())
+        return tr.reshape(f, 1, 1)
+
+    def finish(self, ctx):
+        if self.lookup:
+            codes = self.reason_lut.ravel()
+            for code, label in REASONS.items():
+                ctx.invalid[label] = int(self.hist[codes == code].sum())
+        ctx.report["invalid_pixels"] = dict(ctx.invalid)
+        if "reflected_series_k" in ctx.shared:
+            ser = np.asarray(ctx.shared["reflected_series_k"])
+            ctx.report["reflected_temperature_series_c"] = (ser - ZERO_CELSIUS).round(4).tolist()

@@ -1,0 +1,20 @@
+"""Region statistics stage: streaming min/max/mean/std/percentiles per region, over the
+whole stack and per frame (``irpipe.regions.RegionAccumulator``)."""
+from __future__ import annotations
+
+from ..regions import RegionAccumulator
+from . import Stage
+
+
+class RegionStatsStage(Stage):
+    name = "region_stats"
+
+    def start(self, ctx):
+        self.acc = [RegionAccumulator(n, m) for n, m in ctx.masks.items()]
+
+    def process(self, chunk, ctx):
+        for a in self.acc:
+            a.update(chunk.temperature_c, chunk.first)
+
+    def finish(self, ctx):
+        ctx.report["regions"] = [a.result() for a in self.acc]
