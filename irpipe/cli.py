@@ -17,8 +17,11 @@ def _parser():
     p.add_argument("--debug", action="store_true", help="show Python tracebacks on errors")
     p.add_argument("--version", action="store_true", help="print the version and exit")
     sub = p.add_subparsers(dest="command")
+    common = argparse.ArgumentParser(add_help=False)
+    common.add_argument("--debug", action="store_true", default=argparse.SUPPRESS,
+                        help="show Python tracebacks on errors")
 
-    r = sub.add_parser("run", help="process the stacks of a survey config")
+    r = sub.add_parser("run", parents=[common], help="process the stacks of a survey config")
     r.add_argument("config")
     r.add_argument("--out", help="output folder (overrides output.dir)")
     r.add_argument("--resume", action="store_true", help="skip stacks whose inputs and config are unchanged")
@@ -28,14 +31,16 @@ def _parser():
     r.add_argument("--quiet", action="store_true", help="no progress bar")
     r.add_argument("--frame-chunk", type=int, help="frames per chunk (memory vs. overhead)")
 
-    v = sub.add_parser("validate", help="check a config and its input files without processing")
+    v = sub.add_parser("validate", parents=[common], help="check a config and its input files without processing")
     v.add_argument("config")
 
-    d = sub.add_parser("demo", help="run the bundled demo survey")
+    d = sub.add_parser("demo", parents=[common], help="run the bundled demo survey")
     d.add_argument("--out", default="demo_out", help="output folder (default demo_out)")
     d.add_argument("--quiet", action="store_true")
 
-    sub.add_parser("schema", help="print the JSON Schema of the survey config")
+    sub.add_parser("schema", parents=[common], help="print the JSON Schema of the survey config")
+    from .cli_field import register as _register_field
+    _register_field(sub, common)
     return p
 
 
@@ -84,6 +89,9 @@ def _dispatch(args):
         res = run(args.config, args.out, resume=args.resume, keep_going=args.keep_going, quiet=args.quiet,
                   workers=args.workers, scheduler=args.scheduler, frame_chunk=args.frame_chunk)
         return _summary(res)
+    if args.command in ("emissivity", "calibrate"):
+        from .cli_field import dispatch as _dispatch_field
+        return _dispatch_field(args)
     if args.command == "demo":
         from .demo import run_demo
         return _summary(run_demo(args.out, quiet=args.quiet))

@@ -251,6 +251,9 @@ class ListOf(Node):
         return {**super().json(), "type": "array", "items": self.item.json()}
 
 
+_FILL_EMPTY = {"output"}
+
+
 @dataclass
 class Mapping(Node):
     """A mapping with known keys; unknown keys are rejected with the closest valid key."""
@@ -277,6 +280,8 @@ class Mapping(Node):
                 out[k] = node.check(v[k], list(path) + [k], ctx)
             elif node.default is not None:
                 out[k] = node.default
+            elif isinstance(node, Mapping) and not node.required and k in _FILL_EMPTY:
+                out[k] = node.check({}, list(path) + [k], ctx)
         return out
 
     def json(self):

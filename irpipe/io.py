@@ -46,13 +46,22 @@ class StackReader:
             raise StackError(f"{self.path}: {label} is not a readable TIFF ({_short(exc)}); "
                              "copy the file from the camera card again") from None
         shape = first.shape
-        if len(shape) != 2 or any(p.shape != shape for p in _iter_pages_light(self._tif, n)):
+        self._planar = None
+        if n == 1 and len(shape) == 3 and getattr(first, "planarconfig", 1) == 2:
+            # a 3- or 4-frame stack written without photometric hints is stored as one
+            # page with planar samples: treat the samples as frames
+            self._planar = True
+            n, shape = shape[0], shape[1:]
+        elif len(shape) != 2 or any(p.shape != shape for p in _iter_pages_light(self._tif, n)):
             self.close()
+            if len(shape) == 3 and shape[-1] in (3, 4):
+                raise StackError(f"{self.path}: {label} is a colour image {tuple(shape)}, not radiometric data; "
+                                 "export the raw or temperature stack from the camera software")
             ndim = len(shape) + (1 if n > 1 else 0)
             raise StackError(f"{self.path}: {label} must be a stack of 2-D single-channel frames "
-                             f"(frames, rows, cols); found pages of shape {shape} ({ndim}-D data)")
+                             f"(frames, rows, cols); found {n} page(s) of shape {tuple(shape)} ({ndim}-D data)")
         series = self._tif.series[0] if self._tif.series else None
-        if series is not None and len(series.shape) > 3:
+        if series is not None and len(series.shape) > 3 and len([d for d in series.shape if d > 1]) > 3:
             self.close()
             raise StackError(f"{self.path}: {label} has {len(series.shape)}-D data {tuple(series.shape)}; "
                              "expected (frames, rows, cols)")
@@ -64,7 +73,10 @@ class StackReader:
     def read(self, start, stop):
         """Frames [start, stop) as an ndarray of shape (stop-start, M, N)."""
         out = np.empty((stop - start,) + self.shape[1:], dtype=self.dtype)
+        i = start
         try:
+            if self._planar:
+                return np.ascontiguousarray(self._tif.pages[0].asarray()[start:stop])
             for k, i in enumerate(range(start, stop)):
                 self._tif.pages[i].asarray(out=out[k])
         except Exception as exc:

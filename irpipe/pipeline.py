@@ -405,6 +405,9 @@ def _now():
 
 def run_stack(ctx: StackContext, progress=None) -> dict:
     """Stream one stack through its stage chain; returns its report entry."""
+    if ctx.options.get("workers") or ctx.options.get("scheduler"):
+        from .parallel import run_stack_distributed
+        return run_stack_distributed(ctx, progress)
     reader = StackReader(ctx.stack["path"], f"stack '{ctx.name}'")
     chain = build_chain(ctx)
     try:
@@ -434,6 +437,7 @@ def run_stack(ctx: StackContext, progress=None) -> dict:
            "rows": ctx.shape[1], "cols": ctx.shape[2], "assessment": ctx.stack.get("assessment", "general")}
     rep.update(ctx.report)
     rep["outputs"] = dict(ctx.outputs)
+    ctx.shared.pop("reader", None)
     return rep
 
 

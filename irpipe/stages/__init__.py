@@ -91,9 +91,10 @@ def registry():
     from .writer import TemperatureWriterStage
     from .envelope import EnvelopeStage
     from .electrical import ElectricalStage
+    from .picture import PictureStage
 
     return [BadPixelStage, RadiometricStage, UncertaintyStage, RegionStatsStage, SpotStage,
-            EnvelopeStage, ElectricalStage, TemperatureWriterStage]
+            EnvelopeStage, ElectricalStage, PictureStage, TemperatureWriterStage]
 
 
 def build_chain(ctx):
