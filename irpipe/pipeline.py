@@ -474,9 +474,20 @@ CAUTIONS = [
 
 def build_report(cfg: Config, stacks: list) -> dict:
     survey = dict(cfg.data.get("survey", {}))
+    warnings = []
+    if "indoor_air_c" in survey and "outdoor_air_c" in survey:
+        from .findings import survey_condition_warnings
+        from .humidity import dew_point
+        warnings += survey_condition_warnings(survey["indoor_air_c"], survey["outdoor_air_c"])
+        if survey.get("indoor_relative_humidity_pct") is not None:
+            td = dew_point(survey["indoor_air_c"] + ZERO_CELSIUS, survey["indoor_relative_humidity_pct"] / 100.0)
+            survey["indoor_dew_point_c"] = round(float(td) - ZERO_CELSIUS, 3)
+        survey["indoor_outdoor_difference_k"] = survey["indoor_air_c"] - survey["outdoor_air_c"]
+    for st in stacks:
+        warnings += [f"{st['name']}: {w}" for w in st.get("warnings", [])]
     return {"schema": REPORT_SCHEMA, "software": {"name": "irpipe", "version": __version__},
             "created_utc": _now(), "config": cfg.path.name, "survey": survey,
-            "warnings": [], "cautions": list(CAUTIONS), "stacks": stacks}
+            "warnings": warnings, "cautions": list(CAUTIONS), "stacks": stacks}
 
 
 def write_reports(out: Path, report: dict, contexts):

@@ -27,8 +27,9 @@ What is stored (``irpipe/data/lowtran7_lwir.npz``)
 Optical depth ``od = -ln(tau)`` is split into a dry part (RH = 0: CO2, O3, N2O, CO, CH4,
 O2, N2 continuum) and a water part ``od_wet = od(RH) - od(RH=0)`` (LOWTRAN7 multiplies
 the transmittances of its absorbers, so optical depths add).  Both are stored as
-``ln(od)``, quantised to uint16 with a common offset and step, and delta-coded along the
-distance axis (modulo 2**16) so that zlib compresses them well.  Axes:
+``ln(od)``, quantised to uint16 with a common offset and step, and differenced along the
+temperature, humidity and distance axes (modulo 2**16) so that zlib compresses them
+well (decoding is a cumulative sum, exact).  Axes:
 
 * ``od_dry``: (pressure, air_temperature, distance, wavenumber)
 * ``od_wet``: (pressure, air_temperature, relative_humidity, distance, wavenumber)
@@ -81,7 +82,7 @@ GASES_PPMV = {"CO2": (1, 420.0), "O3": (2, 0.03), "N2O": (3, 0.33), "CO": (4, 0.
 # wavenumber: LOWTRAN7's native 5 cm-1 sampling; 620-1545 cm-1 = 6.47-16.13 um
 WAVENUMBER_CM1 = np.arange(620.0, 1545.0 + 0.1, 5.0)
 # air temperature: 6 K steps through the continuum break points 260 K and 296 K
-AIR_TEMPERATURE_K = np.arange(212.0, 332.0 + 0.1, 6.0)          # -61.15 .. +58.85 degC
+AIR_TEMPERATURE_K = np.arange(212.0, 338.0 + 0.1, 6.0)          # -61.15 .. +64.85 degC
 # relative humidity [%] of the water part (RH = 0 is the dry part); log-spaced at the dry end
 RELATIVE_HUMIDITY_PCT = np.array([1, 2, 4, 7, 10, 15, 20, 25, 30, 40, 50, 60, 70, 80, 90, 100.0])
 # distance: 4 nodes per decade, 0.1 m .. 316 m
@@ -93,6 +94,9 @@ PRESSURE_HPA = np.array([500.0, 650.0, 850.0, 1100.0])
 OD_MIN, OD_MAX = 1e-12, 50.0
 LOG_OFFSET = np.log(OD_MIN)
 LOG_STEP = (np.log(OD_MAX) - np.log(OD_MIN)) / 65535.0
+# axes along which the quantised ln(od) is differenced before zlib (smooth directions)
+DRY_DELTA_AXES = (1, 2)      # air_temperature, distance
+WET_DELTA_AXES = (1, 2, 3)   # air_temperature, relative_humidity, distance
 
 # --- physical constants for the band check (exact in the 2019 SI; CODATA 2018) ----------
 H, C, KB = 6.62607015e-34, 299792458.0, 1.380649e-23
@@ -140,13 +144,12 @@ def optical_depth(tau):
     return -np.log(np.clip(tau, np.exp(-OD_MAX), 1.0))
 
 
-def quantise(od):
-    q = np.round((np.log(np.clip(od, OD_MIN, OD_MAX)) - LOG_OFFSET) / LOG_STEP)
-    q = q.astype(np.uint16)
-    # delta-code along the distance axis (second to last), modulo 2**16
-    d = q.copy()
-    d[..., 1:, :] = np.diff(q, axis=-2)                      # uint16 arithmetic wraps
-    return d
+def quantise(od, delta_axes):
+    """ln(od) -> uint16, then differences along ``delta_axes`` (uint16 arithmetic wraps)."""
+    q = np.round((np.log(np.clip(od, OD_MIN, OD_MAX)) - LOG_OFFSET) / LOG_STEP).astype(np.uint16)
+    for ax in delta_axes:
+        q = np.concatenate([np.take(q, [0], axis=ax), np.diff(q, axis=ax)], axis=ax)
+    return q
 
 
 def build_table(jobs: int):
@@ -166,8 +169,10 @@ def build_table(jobs: int):
     # optical depth cannot decrease with absorber amount; remove float32 round-off
     dry_m = np.maximum.accumulate(dry, axis=2)
     wet_m = np.maximum.accumulate(np.maximum.accumulate(np.maximum(wet, 0.0), axis=3), axis=2)
-    fix = max(np.abs(dry_m - dry).max(), np.abs(wet_m - wet).max())
-    print(f"{n_runs} LOWTRAN7 runs in {time.time() - t0:.0f} s; largest monotonicity fix in od: {fix:.2e}")
+    live = tau[:, :, 1:] > 1e-6                                # where the change could matter
+    fix = max(np.abs(dry_m - dry)[tau[:, :, 0] > 1e-6].max(), np.abs(wet_m - wet)[live].max())
+    print(f"{n_runs} LOWTRAN7 runs in {time.time() - t0:.0f} s; "
+          f"largest monotonicity fix in od where tau > 1e-6: {fix:.1e}")
     meta = {
         "wavenumber_cm1": WAVENUMBER_CM1,
         "air_temperature_k": AIR_TEMPERATURE_K,
@@ -176,9 +181,11 @@ def build_table(jobs: int):
         "pressure_pa": PRESSURE_HPA * 100.0,
         "log_od_offset": np.float64(LOG_OFFSET),
         "log_od_step": np.float64(LOG_STEP),
+        "od_dry_delta_axes": np.array(DRY_DELTA_AXES),
+        "od_wet_delta_axes": np.array(WET_DELTA_AXES),
         "encoding": np.array("q = round((ln(od) - log_od_offset) / log_od_step) as uint16, od clipped to "
-                             f"[{OD_MIN:g}, {OD_MAX:g}]; stored as differences along the distance axis "
-                             "(first element absolute), modulo 2**16: decode with cumsum in uint16"),
+                             f"[{OD_MIN:g}, {OD_MAX:g}]; then differenced (first element kept) along each "
+                             "axis in od_*_delta_axes, modulo 2**16: decode with cumsum in uint16"),
         "od_dry_axes": np.array("pressure, air_temperature, distance, wavenumber"),
         "od_wet_axes": np.array("pressure, air_temperature, relative_humidity, distance, wavenumber"),
         "model": np.array("LOWTRAN7 rev 4.2 (Kneizys et al. 1988, AFGL-TR-88-0177), public domain; "
@@ -192,7 +199,7 @@ def build_table(jobs: int):
         "created": np.array(_dt.date.today().isoformat()),
         "generator": np.array("scripts/make_lowtran_table.py"),
     }
-    return quantise(dry_m), quantise(wet_m), meta
+    return quantise(dry_m, DRY_DELTA_AXES), quantise(wet_m, WET_DELTA_AXES), meta
 
 
 def planck(lam_m, t_k):
