@@ -135,8 +135,10 @@ class Number(Node):
         if bad:
             rng = f"{'(' if self.lo_open else '['}{_fmt(self.lo, '-inf')}, {_fmt(self.hi, 'inf')}{')' if self.hi_open else ']'}"
             hint = ""
-            if self.hint_pct and 1 < v <= 100:
+            if self.hint_pct and 10 <= v <= 100:
                 hint = f"; did you mean {v / 100:g}?"
+            elif self.hint_pct:
+                hint = "; it is a fraction, e.g. 0.93"
             ctx.fail(path, f"{v!r} is not in {rng}{hint}")
         return int(v) if self.integer else float(v)
 

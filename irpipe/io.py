@@ -37,14 +37,24 @@ class StackReader:
         self.path = Path(path)
         self.label = label
         _check_tiff_file(self.path, label)
-        try:
-            self._tif = tifffile.TiffFile(str(self.path))
-            pages = self._tif.pages
-            first = pages.first if hasattr(pages, "first") else pages[0]
-            n = len(pages)
-        except Exception as exc:  # tifffile raises many kinds
-            raise StackError(f"{self.path}: {label} is not a readable TIFF ({_short(exc)}); "
-                             "copy the file from the camera card again") from None
+        size = self.path.stat().st_size
+        with _TiffLog() as log:
+            try:
+                self._tif = tifffile.TiffFile(str(self.path))
+                pages = self._tif.pages
+                first = pages.first if hasattr(pages, "first") else pages[0]
+                n = len(pages)
+                ends = [max((o + b for o, b in zip(p.dataoffsets, p.databytecounts)), default=0)
+                        for p in _iter_pages_light(self._tif, n)]
+            except Exception as exc:  # tifffile raises many kinds
+                raise StackError(f"{self.path}: {label} is not a readable TIFF ({_short(exc)}); "
+                                 "copy the file from the camera card again") from None
+        if log.records or max(ends, default=0) > size:
+            with contextlib.suppress(Exception):
+                self._tif.close()
+            why = log.records[0] if log.records else f"image data end beyond the file's {size} bytes"
+            raise StackError(f"{self.path}: {label} is truncated or corrupt ({why}); "
+                             "copy the file from the camera card again")
         shape = first.shape
         self._planar = None
         if n == 1 and len(shape) == 3 and getattr(first, "planarconfig", 1) == 2:
@@ -97,6 +107,26 @@ class StackReader:
 
     def __exit__(self, *exc):
         self.close()
+
+
+class _TiffLog:
+    """Collect tifffile's logged errors (it logs, rather than raises, on a broken page chain)."""
+
+    def __enter__(self):
+        import logging
+
+        self.records = []
+        self.logger = logging.getLogger("tifffile")
+        self.handler = logging.Handler(logging.WARNING)
+        self.handler.emit = lambda rec: self.records.append(rec.getMessage().splitlines()[0][:120])
+        self.logger.addHandler(self.handler)
+        self._prop = self.logger.propagate
+        self.logger.propagate = False
+        return self
+
+    def __exit__(self, *exc):
+        self.logger.removeHandler(self.handler)
+        self.logger.propagate = self._prop
 
 
 def _iter_pages_light(tif, n):
