@@ -51,10 +51,12 @@ O3 0.03, O2 209460 ppmv; see the table metadata); no aerosol, fog or rain.  Rela
 humidity is that of LOWTRAN7's own saturation formula over liquid water, also below
 0 degC.
 
-Accuracy: against direct LOWTRAN7 runs at off-grid conditions (1-100 m, 10-95 % RH,
--10 to +35 degC, 78-101 kPa; ``tests/data/lowtran7_band_check.csv``) the Planck-weighted
-band transmittance agrees within 0.001.  This says nothing about LOWTRAN7's own error
-against line-by-line models or measurements.
+Accuracy of the table against direct LOWTRAN7 runs at off-grid conditions, for the
+300 K Planck-weighted transmittance of the 7.5-14, 8-14 and 8-12 um bands: at most
+4e-4 for 1-100 m, 10-95 % RH, -10 to +35 degC, 70-106 kPa (the 66 rows of
+``tests/data/lowtran7_band_check.csv`` and 400 random conditions), at most 9e-4 over the
+whole table range; spectral tau within 0.0025.  This says nothing about LOWTRAN7's own
+error against line-by-line models or measurements.
 
 References
 ----------

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import difflib
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
@@ -439,11 +439,19 @@ SPOTS = Mapping(keys={
     "above_reference_k": Number(lo=0.0, lo_open=True), "below_reference_k": Number(lo=0.0, lo_open=True),
     "reference": String(help="region name or 'median'"),
     "min_area_px": Number(lo=1, integer=True, default=4),
+    "within": ListOf(item=String(), min_items=1, help="search only inside these regions"),
+    "exclude": ListOf(item=String(), min_items=1, help="never search inside these regions (e.g. glazing)"),
 }, help="spot search")
+
+STACK_CAMERA = Mapping(keys={k: replace(n, default=None) for k, n in CAMERA.keys.items()},
+                       help="per-stack camera overrides, key by key (e.g. one stack exported as apparent temperature)")
 
 STACK = Mapping(keys={
     "name": String(),
     "path": FilePath(),
+    "camera": STACK_CAMERA,
+    "view_from": String(choices=("inside", "outside"), default="inside",
+                        help="envelope stacks: surveyed from inside (temperature factor, mould) or outside"),
     "conditions": CONDITIONS,
     "regions": ListOf(item=REGION),
     "hotspots": SPOTS,
@@ -533,21 +541,38 @@ def load_config(path) -> Config:
     return cfg
 
 
-def _cross_checks(cfg: Config):
-    d = cfg.data
-    cam = d["camera"]
+def _check_camera(cfg, cam, key):
     if "spectral_band_um" not in cam and "spectral_response" not in cam:
-        cfg.fail(["camera"], "give spectral_band_um: [lo, hi] or spectral_response: file.csv")
+        cfg.fail(key, "give spectral_band_um: [lo, hi] or spectral_response: file.csv")
     if cam["input"] == "counts" and "calibration" not in cam:
-        cfg.fail(["camera"], "input is counts: give calibration: {model: linear, gain: ..., offset_counts: ...}")
+        cfg.fail(key, "input is counts: give calibration: {model: linear, gain: ..., offset_counts: ...}")
     if cam["input"] == "apparent_temperature":
         for k in ("raw_scale", "raw_offset"):
             if cam.get(k) is None:
-                cfg.fail(["camera"], f"input is apparent_temperature: give {k} (kelvin = raw * raw_scale + raw_offset)")
+                cfg.fail(key, f"input is apparent_temperature: give {k} (kelvin = raw * raw_scale + raw_offset)")
     if ("gain_map" in cam) != ("offset_map" in cam):
-        cfg.fail(["camera"], "give both gain_map and offset_map for non-uniformity correction, or neither")
+        cfg.fail(key, "give both gain_map and offset_map for non-uniformity correction, or neither")
+
+
+def merged_camera(data: dict, index: int) -> dict:
+    """The survey camera overridden key by key by the stack's own ``camera:``."""
+    cam = dict(data["camera"])
+    own = {k: v for k, v in data["stacks"][index].get("camera", {}).items() if v is not None}
+    if "spectral_response" in own:
+        cam.pop("spectral_band_um", None)
+    if "spectral_band_um" in own:
+        cam.pop("spectral_response", None)
+    cam.update(own)
+    return cam
+
+
+def _cross_checks(cfg: Config):
+    d = cfg.data
+    _check_camera(cfg, d["camera"], ["camera"])
     names = set()
     for i, st in enumerate(d["stacks"]):
+        if st.get("camera"):
+            _check_camera(cfg, merged_camera(d, i), ["stacks", i, "camera"])
         if st["name"] in names:
             cfg.fail(["stacks", i, "name"], f"stack name '{st['name']}' used twice; names must be unique")
         names.add(st["name"])
@@ -565,6 +590,10 @@ def _cross_checks(cfg: Config):
             sp = st.get(sk)
             if not sp:
                 continue
+            for lk in ("within", "exclude"):
+                for k, nm in enumerate(sp.get(lk, [])):
+                    if nm not in rnames:
+                        cfg.fail(["stacks", i, sk, lk, k], f"'{nm}' is not a region of this stack; regions: {', '.join(sorted(rnames)) or 'none'}")
             ref = sp.get("reference")
             if ref and ref != "median" and ref not in rnames:
                 cfg.fail(["stacks", i, sk, "reference"], f"'{ref}' is not a region of this stack nor 'median'; regions: {', '.join(sorted(rnames)) or 'none'}")

@@ -55,6 +55,7 @@ stacks:
   - name: rear-elevation
     path: rear_elevation.tif
     assessment: envelope
+    view_from: outside
     conditions:
       emissivity:
         labels: rear_elevation_labels.tif
@@ -65,7 +66,9 @@ stacks:
       - {name: insulation-gap, ellipse: {center: [78, 130], radii: [10, 14]}}
       - {name: glazing, rect: [42, 66, 80, 114]}
       - {name: gutter, rect: [4, 0, 10, 160]}
-    coldspots: {below_reference_k: 1.5, reference: brick-field, min_area_px: 6}
+      - {name: masonry, rect: [14, 0, 120, 160]}
+      - {name: window, rect: [38, 60, 84, 120]}
+    hotspots: {above_reference_k: 1.0, reference: brick-field, within: [masonry], exclude: [window], min_area_px: 6}
   - name: landing-bedroom
     path: landing_bedroom.tif
     assessment: envelope
@@ -83,6 +86,7 @@ stacks:
   - name: workshop-board
     path: workshop_board.tif
     assessment: electrical
+    camera: {input: apparent_temperature, raw_scale: 0.01, raw_offset: 0.0}
     load_pct: 65
     ambient_c: 14.0
     conditions:
@@ -163,11 +167,11 @@ def workshop_board(rng, frames=6):
     r, c = np.mgrid[0:ROWS, 0:COLS]
     t = np.full((ROWS, COLS), 16.0) + _smooth_noise(rng, (ROWS, COLS), 0.05)
     for c0 in (30, 70, 110):
-        t[40:80, c0:c0 + 20] = 24.0
+        t[40:80, c0:c0 + 20] = 21.0
     hot = np.exp(-(((r - 46) / 3.0) ** 2 + ((c - 40) / 3.0) ** 2))  # loose terminal on L1
     t = t[None] + 0.0 * np.arange(frames)[:, None, None]
     settle = np.linspace(0.85, 1.0, frames)[:, None, None]
-    return t + 38.0 * hot[None] * settle
+    return t + 41.0 * hot[None] * settle
 
 
 def porch_door(rng, frames=4):

@@ -19,7 +19,7 @@ from pathlib import Path
 import numpy as np
 
 from . import __version__
-from .config import Config, load_config, merged_conditions
+from .config import Config, load_config, merged_camera, merged_conditions
 from .constants import STANDARD_PRESSURE, ZERO_CELSIUS
 from .correction import CameraModel, MeasurementModel
 from .emissivity import EmissivityField, material_emissivity, oblique_factor
@@ -58,9 +58,8 @@ def load_materials(cfg: Config):
     return lib
 
 
-def camera_model(cfg: Config):
-    """Spectral response and signal model from the camera section."""
-    cam = cfg.data["camera"]
+def camera_model(cfg: Config, cam: dict):
+    """Spectral response and signal model from a (merged) camera section."""
     if "spectral_response" in cam:
         try:
             wl, resp = read_spectral_response(cam["spectral_response"])
@@ -70,14 +69,13 @@ def camera_model(cfg: Config):
     else:
         lo, hi = cam["spectral_band_um"]
         response = SpectralResponse.rectangular(lo * 1e-6, hi * 1e-6)
-    cal = resolve_calibration(cfg)
+    cal = resolve_calibration(cfg, cam)
     if cam["input"] == "counts" and cal["model"] == "sakuma-hattori":
         return CameraModel(response, "sakuma-hattori", (cal["A_um"] * 1e-6, cal["B_umK"] * 1e-6, cal["C"])), cal
     return CameraModel(response, "band"), cal
 
 
-def resolve_calibration(cfg: Config):
-    cam = cfg.data["camera"]
+def resolve_calibration(cfg: Config, cam: dict):
     if cam["input"] == "apparent_temperature":
         return {"model": "apparent_temperature", "raw_scale": cam["raw_scale"], "raw_offset": cam["raw_offset"],
                 "offset_counts": 0.0}
@@ -121,13 +119,17 @@ def _fail(cfg, keypath, msg):
     cfg.fail(keypath, msg)
 
 
-def prepare_stack(cfg: Config, i: int, out_dir: Path, camera, cal, materials, options):
+def prepare_stack(cfg: Config, i: int, out_dir: Path, cameras: dict, materials, options):
     """Open a stack, read its maps and masks, resolve conditions; no output written."""
     st = cfg.data["stacks"][i]
     cond = merged_conditions(cfg.data, i)
+    cam = merged_camera(cfg.data, i)
+    ckey = json.dumps(cam, sort_keys=True, default=str)
+    if ckey not in cameras:
+        cameras[ckey] = camera_model(cfg, cam)
+    camera, cal = cameras[ckey]
     reader = StackReader(st["path"], f"stack '{st['name']}'")
     shape, dtype = reader.shape, reader.dtype
-    cam = cfg.data["camera"]
     if cam["input"] == "counts" and not np.issubdtype(dtype, np.integer):
         reader.close()
         raise InputDataError(f"{st['path']}: stack '{st['name']}' holds {dtype} values but camera.input is "
@@ -137,6 +139,7 @@ def prepare_stack(cfg: Config, i: int, out_dir: Path, camera, cal, materials, op
                        dtype=dtype, out_dir=out_dir, camera=camera, materials=materials, options=options)
     ctx.shared["reader"] = reader
     ctx.shared["calibration"] = cal
+    ctx.shared["camera_cfg"] = cam
     key = ["stacks", i]
     try:
         _prepare_maps(ctx, cfg, key, cam)
@@ -192,7 +195,7 @@ def _prepare_conditions(ctx, cfg, key, cond):
     else:
         ctx.shared["reflected_temperature_k"] = refl + ZERO_CELSIUS
     tau, desc = path_transmittance(cond, ctx.camera.response, f"{cfg.path.name}, stacks[{ctx.index}] conditions")
-    rng = cfg.data["camera"].get("range_c") or DEFAULT_RANGE_C
+    rng = ctx.shared["camera_cfg"].get("range_c") or DEFAULT_RANGE_C
     try:
         ctx.model = MeasurementModel(ctx.camera, tau, (rng[0] + ZERO_CELSIUS, rng[1] + ZERO_CELSIUS))
     except ValueError as exc:
@@ -277,7 +280,7 @@ class RunResult:
 
 def _stack_fingerprint(cfg: Config, i: int, input_hashes: dict):
     st = cfg.data["stacks"][i]
-    blob = json.dumps({"camera": cfg.data["camera"], "conditions": merged_conditions(cfg.data, i),
+    blob = json.dumps({"camera": merged_camera(cfg.data, i), "conditions": merged_conditions(cfg.data, i),
                        "stack": st, "survey": cfg.data.get("survey", {}),
                        "uncertainty": cfg.data.get("uncertainty", {}), "inputs": input_hashes,
                        "version": __version__}, sort_keys=True, default=str)
@@ -288,7 +291,7 @@ def _inputs_of(cfg: Config, i: int):
     """Files a stack depends on."""
     st = cfg.data["stacks"][i]
     files = [st["path"]]
-    cam = cfg.data["camera"]
+    cam = merged_camera(cfg.data, i)
     for k in ("spectral_response", "gain_map", "offset_map", "bad_pixel_mask"):
         if k in cam:
             files.append(cam[k])
@@ -306,12 +309,12 @@ def _inputs_of(cfg: Config, i: int):
 def plan(cfg: Config, out_dir: Path, options=None):
     """Validate every stack's inputs against the config before any work (no outputs)."""
     options = options or {}
-    camera, cal = camera_model(cfg)
+    cameras = {}
     materials = load_materials(cfg)
     contexts = []
     for i in range(len(cfg.data["stacks"])):
         try:
-            ctx = prepare_stack(cfg, i, out_dir, camera, cal, materials, options)
+            ctx = prepare_stack(cfg, i, out_dir, cameras, materials, options)
         except InputDataError as exc:
             if not options.get("keep_going"):
                 for c in contexts:
@@ -321,7 +324,7 @@ def plan(cfg: Config, out_dir: Path, options=None):
             continue
         ctx.shared["reader"].close()
         contexts.append(ctx)
-    return camera, cal, materials, contexts
+    return cameras, materials, contexts
 
 
 def run(config_path, out_dir=None, *, resume=False, keep_going=False, quiet=True, workers=None,
@@ -333,7 +336,7 @@ def run(config_path, out_dir=None, *, resume=False, keep_going=False, quiet=True
     options = {"keep_going": keep_going, "quiet": quiet, "workers": workers, "scheduler": scheduler,
                "frame_chunk": frame_chunk or cfg.data["output"]["frame_chunk"],
                "formats": cfg.data["output"]["formats"]}
-    camera, cal, materials, contexts = plan(cfg, out, options)
+    cameras, materials, contexts = plan(cfg, out, options)
     out.mkdir(parents=True, exist_ok=True)
     old_manifest = _read_json(out / MANIFEST)
     old_stacks = {s["name"]: s for s in (old_manifest or {}).get("stacks", [])}

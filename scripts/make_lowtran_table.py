@@ -16,10 +16,9 @@ computes on a 5 cm-1 grid; the table keeps that native 5 cm-1 sampling.
 Gases: in this wrapper WMOL(1) is the relative humidity [%] (JUNIT 17, saturation over
 liquid water as computed inside LOWTRAN7) and WMOL(2..12) are partial pressures [hPa]
 (JUNIT 14); pressure is given in hPa (JUNIT 10) and temperature in K.  The uniformly
-mixed gases are set to approximately present-day volume mixing ratios (given from
-memory; NOAA GML global means of the early 2020s are close to these): CO2 420, O3 0.03,
-N2O 0.33, CO 0.1, CH4 1.9, O2 209460 ppmv, converted to partial pressure at the total
-pressure of each run.  Leaving them at zero makes the 7.5-8 um (CH4, N2O) and 13-14 um
+mixed gases are set to approximately present-day volume mixing ratios (project choice,
+values from memory): CO2 420, O3 0.03, N2O 0.33, CO 0.1, CH4 1.9, O2 209460 ppmv,
+converted to partial pressure at the total pressure of each run.  Leaving them at zero makes the 7.5-8 um (CH4, N2O) and 13-14 um
 (CO2) band edges far too transparent.
 
 What is stored (``irpipe/data/lowtran7_lwir.npz``)

@@ -27,7 +27,7 @@ class RadiometricStage(Stage):
     name = "radiometric"
 
     def start(self, ctx):
-        cam = ctx.cfg.data["camera"]
+        cam = ctx.shared["camera_cfg"]
         self.input = cam["input"]
         cal = ctx.shared["calibration"]
         self.cal = cal

@@ -34,6 +34,17 @@ class SpotStage(Stage):
                 return r["mean_c"]
         return None
 
+    @staticmethod
+    def _restrict(spec, ctx, img):
+        if "within" not in spec and "exclude" not in spec:
+            return img
+        keep = np.zeros(img.shape, bool) if "within" in spec else np.ones(img.shape, bool)
+        for name in spec.get("within", []):
+            keep |= ctx.masks[name]
+        for name in spec.get("exclude", []):
+            keep &= ~ctx.masks[name]
+        return np.where(keep, img, np.nan)
+
     def finish(self, ctx):
         out = []
         for kind, key, img, frm in (("hot", "hotspots", self.state.max_c, self.state.max_frame),
@@ -41,6 +52,7 @@ class SpotStage(Stage):
             spec = ctx.stack.get(key)
             if not spec:
                 continue
+            img = self._restrict(spec, ctx, img)
             ref = self._reference(spec, ctx, img)
             sign = 1.0 if kind == "hot" else -1.0
             thresholds = []

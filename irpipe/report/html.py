@@ -1,0 +1,410 @@
+"""The self-contained HTML report: inline CSS, pictures embedded as base64 PNG, no external
+fetches; prints to A4 or Letter (no fixed page size, page-break rules, images at most the
+page width).
+
+Layout and wording are this project's own. Sections: heading block, summary with the
+numbered findings, survey conditions and warnings, one section per stack (conditions and
+corrections, picture, histogram, trend, region tables, findings), cautions and limits.
+"""
+from __future__ import annotations
+
+import base64
+from html import escape
+
+from . import tables
+
+CSS = """
+:root { --ink:#1d232b; --muted:#5b6570; --rule:#c9ced4; --soft:#f3f5f7; --accent:#27445f; }
+* { box-sizing: border-box; }
+html { -webkit-print-color-adjust: exact; print-color-adjust: exact; }
+body { margin: 0; background: #ffffff; color: var(--ink);
+       font: 13px/1.45 "DejaVu Sans", "Liberation Sans", Arial, Helvetica, sans-serif; }
+main { max-width: 1060px; margin: 0 auto; padding: 28px 34px 40px; }
+h1 { font-size: 23px; margin: 4px 0 12px; line-height: 1.25; }
+h2 { font-size: 17px; margin: 30px 0 10px; padding-bottom: 4px; border-bottom: 2px solid var(--accent);
+     color: var(--accent); break-after: avoid; page-break-after: avoid; }
+h3 { font-size: 14px; margin: 20px 0 6px; break-after: avoid; page-break-after: avoid; }
+p { margin: 6px 0; }
+.kicker { text-transform: uppercase; letter-spacing: .08em; font-size: 11px; color: var(--muted); margin: 0; }
+header.top { border-bottom: 1px solid var(--rule); padding-bottom: 12px; }
+dl.meta { display: grid; grid-template-columns: max-content 1fr max-content 1fr; gap: 2px 14px; margin: 0; }
+dl.meta dt { color: var(--muted); }
+dl.meta dd { margin: 0; }
+.note { color: var(--muted); font-size: 12px; }
+.box { border: 1px solid var(--rule); background: var(--soft); padding: 8px 12px; margin: 10px 0;
+       break-inside: avoid; page-break-inside: avoid; }
+.box.warn { border-left: 5px solid #b0631b; background: #fbf4ec; }
+.box.ok { border-left: 5px solid #4c7a5a; }
+.box ul { margin: 4px 0; padding-left: 20px; }
+.counts { display: flex; flex-wrap: wrap; gap: 8px; margin: 8px 0; }
+.counts div { border: 1px solid var(--rule); padding: 6px 12px; min-width: 120px; }
+.counts b { display: block; font-size: 19px; }
+table { border-collapse: collapse; width: 100%; margin: 6px 0 10px; font-size: 11.5px; }
+th, td { border-bottom: 1px solid var(--rule); padding: 3px 6px; text-align: left; vertical-align: top; }
+th { background: var(--soft); font-weight: 600; border-top: 1px solid var(--rule); }
+td.n, th.n { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
+td.loc { white-space: nowrap; font-variant-numeric: tabular-nums; }
+table.kv { width: auto; min-width: 48%; }
+table.kv th { width: 1%; white-space: nowrap; background: none; border-top: none; color: var(--muted);
+              font-weight: normal; }
+thead { display: table-header-group; }
+tr { break-inside: avoid; page-break-inside: avoid; }
+.cols { display: flex; gap: 18px; align-items: flex-start; flex-wrap: wrap; }
+.cols > * { flex: 1 1 300px; min-width: 0; }
+figure { margin: 12px 0; break-inside: avoid; page-break-inside: avoid; }
+figure img { display: block; max-width: 100%; height: auto; border: 1px solid var(--rule); }
+figcaption { font-size: 11.5px; color: var(--muted); margin-top: 4px; }
+.badge { display: inline-block; padding: 0 6px; border-radius: 3px; font-size: 11px; font-weight: 600;
+         white-space: nowrap; border: 1px solid #888; }
+.p1 { background: #7d1d1d; color: #fff; border-color: #7d1d1d; }
+.p2 { background: #b4541c; color: #fff; border-color: #b4541c; }
+.p3 { background: #f0cf73; color: #1d232b; border-color: #c9a84d; }
+.p4 { background: #e4e8ee; color: #1d232b; border-color: #aab3bf; }
+.env { background: #e6e1f2; color: #2d2450; border-color: #9d92c4; }
+.failed { border-left: 5px solid #7d1d1d; background: #f8eeee; }
+section.stack > .stackhead { display: flex; justify-content: space-between; gap: 12px; flex-wrap: wrap; }
+ol.cautions li { margin: 4px 0; }
+footer { margin-top: 30px; border-top: 1px solid var(--rule); padding-top: 8px; font-size: 11px;
+         color: var(--muted); }
+@page { margin: 14mm 12mm 14mm 12mm; }
+@media print {
+  body { font-size: 9.5pt; }
+  main { max-width: none; padding: 0; }
+  h2 { margin-top: 14pt; }
+  section.stack { break-before: page; page-break-before: always; }
+  section#cautions { break-before: page; page-break-before: always; }
+  table { font-size: 8.3pt; }
+  .cols > * { flex-basis: 45%; }
+  a { color: inherit; text-decoration: none; }
+}
+"""
+
+
+# --- formatting -----------------------------------------------------------------------
+
+def _e(x):
+    return escape("" if x is None else str(x))
+
+
+def _f(x, nd=2, unit=""):
+    v = tables._num(x)
+    if v is None:
+        return "–"
+    s = f"{v:.{nd}f}"
+    if s.lstrip("-").strip("0.") == "":
+        s = s.lstrip("-")
+    return s + unit
+
+
+def _pm(x, u, nd=2):
+    """'value ± U' when U is known."""
+    s = _f(x, nd)
+    if s != "–" and u is not None:
+        s += f" ± {u:.{nd}f}"
+    return s
+
+
+def _yn(x):
+    return "–" if x is None else ("yes" if x else "no")
+
+
+def _loc(at):
+    if not at or at.get("row") is None:
+        return "–"
+    fr = f", f{at['frame']}" if at.get("frame") is not None else ""
+    return f"r{at['row']} c{at['col']}{fr}"
+
+
+def _badge(f):
+    if f["kind"] == "electrical" and f.get("priority") is not None:
+        return f'<span class="badge p{min(int(f["priority"]), 4)}">{_e(f["severity"])} (priority {f["priority"]})</span>'
+    if f["kind"] == "envelope":
+        return f'<span class="badge env">{_e(f["severity"])}</span>'
+    return "–"
+
+
+def _img(png, alt, width=None):
+    b64 = base64.b64encode(png).decode("ascii")
+    w = f' width="{int(width)}"' if width else ""
+    return f'<img src="data:image/png;base64,{b64}" alt="{_e(alt)}"{w}>'
+
+
+def _kv(rows):
+    body = "".join(f"<tr><th>{_e(k)}</th><td>{v}</td></tr>" for k, v in rows if v not in (None, ""))
+    return f'<table class="kv"><tbody>{body}</tbody></table>'
+
+
+def _table(head, rows, numeric=()):
+    th = "".join(f'<th class="n">{h}</th>' if i in numeric else f"<th>{h}</th>" for i, h in enumerate(head))
+    body = []
+    for r in rows:
+        tds = "".join(f'<td class="n">{c}</td>' if i in numeric else f"<td>{c}</td>" for i, c in enumerate(r))
+        body.append(f"<tr>{tds}</tr>")
+    return f"<table><thead><tr>{th}</tr></thead><tbody>{''.join(body)}</tbody></table>"
+
+
+# --- sections -------------------------------------------------------------------------
+
+def _header(report):
+    s = report.get("survey", {})
+    sw = report.get("software", {})
+    meta = [("Site", s.get("site")), ("Survey date", s.get("date")), ("Operator", s.get("operator")),
+            ("Building use", s.get("building_use")),
+            ("Report created (UTC)", report.get("created_utc")),
+            ("Produced with", f"{sw.get('name', 'irpipe')} {sw.get('version', '')}".strip()),
+            ("Survey configuration", report.get("config"))]
+    dl = "".join(f"<dt>{_e(k)}</dt><dd>{_e(v)}</dd>" for k, v in meta if v not in (None, ""))
+    title = s.get("title") or "Infrared survey"
+    return (f'<header class="top"><p class="kicker">Infrared thermography survey report</p>'
+            f"<h1>{_e(title)}</h1><dl class=\"meta\">{dl}</dl></header>")
+
+
+def _finding_rows(findings, with_stack):
+    rows = []
+    for f in findings:
+        value = _f(f["peak_c"], 1, " °C")
+        r = [f'<a href="#finding-{f["number"]}">{f["number"]}</a>' if with_stack else
+             f'<span id="finding-{f["number"]}">{f["number"]}</span>']
+        if with_stack:
+            r.append(_e(f["stack"]))
+        r += [_e(tables.KIND_LABEL.get(f["kind"], f["kind"])) + (f" <i>{_e(f['region'])}</i>" if f.get("region") else ""),
+              _loc(f), value, _f(f["delta_k"], 1, " K"), _badge(f)]
+        if not with_stack:
+            r.insert(5, _f(f["mean_c"], 1, " °C"))
+            r.insert(6, _e(f["area_px"]))
+            r.append(_e(f["detail"]))
+        rows.append(r)
+    return rows
+
+
+def _summary(report, findings):
+    done = tables.done_stacks(report)
+    failed = [s for s in report.get("stacks", []) if s.get("status", "done") != "done"]
+    by = {k: sum(1 for f in findings if f["kind"] == k) for k in tables.KIND_ORDER}
+    urgent = sum(1 for f in findings if f["kind"] == "electrical" and (f.get("priority") or 9) <= 2)
+    cells = [("stacks processed", len(done)), ("stacks failed", len(failed)) if failed else None,
+             ("findings", len(findings)), ("electrical, priority 1-2", urgent) if by["electrical"] else None,
+             ("envelope surfaces", by["envelope"]), ("hot spots", by["hot"]), ("cold spots", by["cold"])]
+    counts = "".join(f"<div><b>{v}</b>{_e(k)}</div>" for c in cells if c for k, v in [c])
+    out = ['<section id="summary"><h2>Summary</h2>', f'<div class="counts">{counts}</div>',
+           '<p class="note">Every figure in this report is to be read with the cautions and limits at '
+           'its end. Finding numbers are the same in the pictures, the tables and findings.csv.</p>']
+    if findings:
+        out.append("<h3>Numbered findings</h3>")
+        out.append(_table(["No.", "Stack", "Finding", "Location", "Peak / lowest", "Difference", "Grade"],
+                          _finding_rows(findings, True), numeric=(0, 4, 5)))
+    else:
+        out.append('<div class="box ok">No findings were raised by the configured thresholds and '
+                   'assessments.</div>')
+    out.append("</section>")
+    return "".join(out)
+
+
+def _conditions(report):
+    s = report.get("survey", {})
+    rows = [("Indoor air temperature", _f(s.get("indoor_air_c"), 1, " °C") if "indoor_air_c" in s else None),
+            ("Outdoor air temperature", _f(s.get("outdoor_air_c"), 1, " °C") if "outdoor_air_c" in s else None),
+            ("Indoor-outdoor difference", _f(s.get("indoor_outdoor_difference_k"), 1, " K")
+             if "indoor_outdoor_difference_k" in s else None),
+            ("Indoor relative humidity", _f(s.get("indoor_relative_humidity_pct"), 0, " %")
+             if s.get("indoor_relative_humidity_pct") is not None else None),
+            ("Indoor dew point", _f(s.get("indoor_dew_point_c"), 1, " °C") if "indoor_dew_point_c" in s else None),
+            ("Building use", _e(s.get("building_use"))),
+            ("Critical temperature factor (configured)", _f(s.get("critical_temperature_factor"), 2)
+             if s.get("critical_temperature_factor") is not None else None)]
+    out = ['<section id="conditions"><h2>Survey conditions</h2>', _kv(rows)]
+    w = report.get("warnings") or []
+    if w:
+        items = "".join(f"<li>{_e(x)}</li>" for x in w)
+        out.append(f'<div class="box warn"><b>Warnings on the survey conditions and processing</b><ul>{items}</ul></div>')
+    else:
+        out.append('<div class="box ok">No warnings on the survey conditions or the processing.</div>')
+    out.append("</section>")
+    return "".join(out)
+
+
+def _stack_conditions(st):
+    c = st.get("conditions", {}) or {}
+    refl = c.get("reflected_temperature_c")
+    refl = _f(refl, 1, " °C") if isinstance(refl, (int, float)) else _e(refl)
+    rows = [("Emissivity", _e(c.get("emissivity"))),
+            ("Reflected temperature", refl),
+            ("Air temperature", _f(c.get("air_temperature_c"), 1, " °C")),
+            ("Relative humidity", _f(c.get("relative_humidity_pct"), 0, " %")
+             if c.get("relative_humidity_pct") is not None else None),
+            ("Distance", _f(c.get("distance_m"), 1, " m")),
+            ("Atmospheric path", _e(c.get("path"))),
+            ("Band transmittance (300 K)", _f(c.get("band_transmittance_300k"), 4)),
+            ("View angle from normal", _f(c.get("view_angle_deg"), 0, "°") if c.get("view_angle_deg") is not None
+             else None)]
+    return _kv(rows)
+
+
+def _stack_corrections(st):
+    n = (st.get("frames") or 0) * (st.get("rows") or 0) * (st.get("cols") or 0)
+    inv = st.get("invalid_pixels") or {}
+    total = sum(int(v) for v in inv.values())
+
+    def pct(v):
+        return f"{v}" + (f" ({100.0 * v / n:.2g} %)" if n and v else "")
+
+    rows = [("Processing plan", _e(st.get("plan"))),
+            ("Bad detector pixels filled", _e(st.get("bad_pixels_filled")) if "bad_pixels_filled" in st else None),
+            ("Invalid pixel values", f"{pct(total)} of {n}" if n else _e(total))]
+    rows += [(f"– {k.replace('_', ' ')}", pct(int(v))) for k, v in inv.items()]
+    if "never_valid_pixels" in st:
+        rows.append(("Pixels never valid", _e(st["never_valid_pixels"])))
+    ser = st.get("reflected_temperature_series_c")
+    if ser:
+        rows.append(("Reflected temperature per frame", _e(", ".join(f"{v:.1f}" for v in ser)) + " °C"))
+    return _kv(rows)
+
+
+def _region_tables(st):
+    regions = st.get("regions") or []
+    if not regions:
+        return '<p class="note">No regions were defined for this stack.</p>'
+    has_u = any(tables.uncertainty_of(r, "mean_c") is not None for r in regions)
+    unit = " [°C]" + (" ± U (k = 2)" if has_u else "")
+    head = ["Region", "Pixels", "Min" + unit, "Mean" + unit, "Max" + unit, "Std. dev. [K]",
+            "P05 [°C]", "P95 [°C]", "Lowest at", "Highest at"]
+    rows = []
+    for r in regions:
+        rows.append([_e(r["name"]), _e(r.get("pixels")),
+                     _pm(r.get("min_c"), tables.uncertainty_of(r, "min_c")),
+                     _pm(r.get("mean_c"), tables.uncertainty_of(r, "mean_c")),
+                     _pm(r.get("max_c"), tables.uncertainty_of(r, "max_c")),
+                     _f(r.get("std_c"), 2), _f(r.get("p05_c"), 2), _f(r.get("p95_c"), 2),
+                     _loc(r.get("min_at")), _loc(r.get("max_at"))])
+    out = ["<h3>Region temperatures</h3>",
+           _table(head, rows, numeric=(1, 2, 3, 4, 5, 6, 7)),
+           '<p class="note">Statistics over all valid pixel values of all frames; locations as row, '
+           'column and frame (r, c, f), counted from 0 at the top left.'
+           + (' U is the expanded uncertainty with coverage factor k = 2.' if has_u else '') + '</p>']
+    env = [r for r in regions if r.get("temperature_factor") is not None or r.get("mould_risk") is not None]
+    if env:
+        ec = st.get("envelope_conditions") or {}
+        rows = []
+        for r in env:
+            fails = tables.envelope_failures(r)
+            rows.append([_e(r["name"]), _f(r.get("minimum_surface_c"), 2), _f(r.get("temperature_factor"), 3),
+                         _f(r.get("critical_temperature_factor"), 2), _f(r.get("surface_relative_humidity_pct"), 0),
+                         _yn(r.get("mould_risk")), _yn(r.get("condensation_risk")),
+                         f'<span class="badge env">{_e("; ".join(fails))}</span>' if fails else "passes"])
+        out += ["<h3>Envelope assessment</h3>",
+                _table(["Region", "Lowest surface [°C]", "Temperature factor", "Critical factor",
+                        "Surface RH [%]", "Mould risk", "Condensation risk", "Result"], rows, numeric=(1, 2, 3, 4)),
+                '<p class="note">Temperature factor f = (surface − outdoor air) / (indoor air − outdoor air) '
+                'from the lowest 3×3-mean of the frame-averaged image'
+                + (f"; indoor {_f(ec.get('indoor_air_c'), 1)} °C, outdoor {_f(ec.get('outdoor_air_c'), 1)} °C"
+                   if ec else "")
+                + (f", indoor relative humidity {_f(ec.get('indoor_relative_humidity_pct'), 0)} %"
+                   if ec.get("indoor_relative_humidity_pct") is not None else "")
+                + '. Mould risk: surface relative humidity of 80 % or more; condensation risk: surface at '
+                'or below the indoor dew point. The temperature factor describes internal surfaces.</p>']
+    el = st.get("electrical") or {}
+    comps = el.get("components") or []
+    if comps:
+        rows = []
+        for c in comps:
+            grade = (f'<span class="badge p{min(int(c["priority"]), 4)}">{_e(c["severity"])} '
+                     f'(priority {c["priority"]})</span>' if c.get("priority") is not None else _e(c.get("severity")))
+            warn = "; ".join(c.get("warnings") or [])
+            rows.append([_e(c["region"]), _e(c.get("reference") or "–"), _f(c.get("max_c"), 1),
+                         _f(c.get("rise_over_reference_k"), 1), _f(c.get("rise_over_ambient_k"), 1),
+                         _f(c.get("rise_over_ambient_at_rated_load_k"), 1), grade,
+                         _e(c.get("action")) + (f"<br><i>{_e(warn)}</i>" if warn else "")])
+        load = el.get("load_pct")
+        out += ["<h3>Electrical components</h3>",
+                _table(["Component", "Compared with", "Max [°C]", "Rise over comparison [K]",
+                        "Rise over ambient [K]", "At rated load [K]", "Grade", "Action"], rows, numeric=(2, 3, 4, 5)),
+                '<p class="note">'
+                + (f"Load during the survey: {_f(load, 0)} % of rating; rises scaled to rated load by the "
+                   "square of the current ratio. " if load is not None else "Load during the survey not given. ")
+                + f"Severity bands: {_e(el.get('table_source'))}</p>"]
+    return "".join(out)
+
+
+def _stack_section(k, st, picture, findings, fig_no):
+    from . import figures
+
+    name = st["name"]
+    out = [f'<section class="stack" id="stack-{k}"><div class="stackhead"><h2>{k}. {_e(name)}</h2></div>']
+    if st.get("status", "done") != "done":
+        out.append(f'<div class="box failed"><b>This stack was not processed.</b> {_e(st.get("error"))}</div>'
+                   "</section>")
+        return "".join(out), fig_no
+    out.append(f'<p>Source <b>{_e(st.get("path"))}</b>: {_e(st.get("frames"))} frame(s) of {_e(st.get("rows"))} × '
+               f'{_e(st.get("cols"))} pixels; assessment <b>{_e(st.get("assessment", "general"))}</b>.</p>')
+    if st.get("warnings"):
+        items = "".join(f"<li>{_e(w)}</li>" for w in st["warnings"])
+        out.append(f'<div class="box warn"><b>Warnings</b><ul>{items}</ul></div>')
+    out.append('<div class="cols"><div><h3>Conditions applied</h3>' + _stack_conditions(st) + "</div>"
+               '<div><h3>Corrections and data quality</h3>' + _stack_corrections(st) + "</div></div>")
+    mine = [f for f in findings if f["stack"] == name]
+    if picture and picture.get("mean_c") is not None:
+        fig_no += 1
+        rng = figures.colour_range(picture["mean_c"])
+        import numpy as np
+        invalid = int(np.count_nonzero(~np.isfinite(np.asarray(picture["mean_c"], float))))
+        png = figures.thermogram(picture, mine)
+        cap = (f"Figure {fig_no}. {_e(name)}: corrected surface temperature, mean over "
+               f"{_e(st.get('frames'))} frame(s), colour map {figures.TEMPERATURE_CMAP}"
+               + (f", scale {rng[0]:.1f} to {rng[1]:.1f} °C" if rng else "")
+               + ". White outlines: regions, named at their top-left corner. Numbered circles: findings, "
+               "at the pixel of their peak or lowest value."
+               + (f" Grey: {invalid} pixel(s) without a valid value." if invalid else ""))
+        out.append(f'<figure class="thermogram">{_img(png, f"Corrected temperature of {name}", 814)}'
+                   f"<figcaption>{cap}</figcaption></figure>")
+        plots = []
+        hist = figures.histogram(picture)
+        fig_no += 1
+        plots.append(f"<figure>{_img(hist, f'Histogram of {name}', 407)}<figcaption>Figure {fig_no}. "
+                     f"Distribution of all valid values of {_e(name)} (logarithmic count axis).</figcaption></figure>")
+        tr = figures.trend(st.get("regions") or [], st.get("reflected_temperature_series_c"))
+        if tr is not None:
+            fig_no += 1
+            plots.append(f"<figure>{_img(tr, f'Region means per frame of {name}', 407)}<figcaption>Figure {fig_no}. "
+                         f"Mean of each region per frame; the shaded band spans the region's minimum to maximum."
+                         "</figcaption></figure>")
+        out.append('<div class="cols">' + "".join(plots) + "</div>")
+    else:
+        out.append('<div class="box warn">No picture: the frame data of this stack were not available to the '
+                   'report writer.</div>')
+    out.append(_region_tables(st))
+    out.append("<h3>Findings</h3>")
+    if mine:
+        out.append(_table(["No.", "Finding", "Location", "Peak / lowest", "Difference", "Mean", "Area [px]",
+                           "Grade", "Detail"], _finding_rows(mine, False), numeric=(0, 3, 4, 5, 6)))
+    else:
+        out.append('<p class="note">No findings for this stack.</p>')
+    out.append("</section>")
+    return "".join(out), fig_no
+
+
+def _cautions(report):
+    items = "".join(f"<li>{_e(c)}</li>" for c in report.get("cautions") or [])
+    return (f'<section id="cautions"><h2>Cautions and limits</h2><ol class="cautions">{items}</ol>'
+            '<p class="note">Temperatures are given in degrees Celsius and differences in kelvin. '
+            'The numbers of this report are also in regions.csv, findings.csv and report.json '
+            f'(schema {_e(report.get("schema"))}).</p></section>')
+
+
+def render(report: dict, pictures: dict, findings: list) -> str:
+    """The complete HTML document (one string)."""
+    s = report.get("survey", {})
+    title = s.get("title") or "Infrared survey report"
+    parts = [_header(report), _summary(report, findings), _conditions(report)]
+    fig_no = 0
+    for k, st in enumerate(report.get("stacks", []), 1):
+        sec, fig_no = _stack_section(k, st, (pictures or {}).get(st.get("name")), findings, fig_no)
+        parts.append(sec)
+    parts.append(_cautions(report))
+    sw = report.get("software", {})
+    parts.append(f"<footer>{_e(sw.get('name', 'irpipe'))} {_e(sw.get('version', ''))} · report schema "
+                 f"{_e(report.get('schema'))} · created {_e(report.get('created_utc'))}</footer>")
+    return ("<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n"
+            "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">\n"
+            f"<title>{_e(title)}</title>\n<style>{CSS}</style>\n</head>\n<body>\n<main>\n"
+            + "\n".join(parts) + "\n</main>\n</body>\n</html>\n")
+
