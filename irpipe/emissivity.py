@@ -50,15 +50,80 @@ class EmissivityField:
         return None
 
     def scaled(self, factor):
-        """Emissivity times ``factor`` (scalar or (M, N)), e.g. for an oblique view."""
+        """Emissivity times ``factor`` (scalar or (M, N)), e.g. for an oblique view.
+
+        The standard uncertainty, when known, is scaled by the same factor.
+        """
         f = np.asarray(factor, float)
+        u = None if self.uncertainty is None else np.asarray(self.uncertainty, float) * f
+        if u is not None and u.ndim == 0:
+            u = float(u)
         if f.ndim == 0:
             if self.value is not None:
-                return EmissivityField(value=float(self.value * f), description=self.description)
+                return EmissivityField(value=float(self.value * f), description=self.description, uncertainty=u)
             if self.values is not None:
-                return EmissivityField(index=self.index, values=self.values * f, description=self.description)
-            return EmissivityField(map=self.map * f, description=self.description)
-        return EmissivityField(map=self.as_array(f.shape) * f, description=self.description)
+                return EmissivityField(index=self.index, values=self.values * f, description=self.description,
+                                       uncertainty=u)
+            return EmissivityField(map=self.map * f, description=self.description, uncertainty=u)
+        return EmissivityField(map=self.as_array(f.shape) * f, description=self.description, uncertainty=u)
+
+    def uncertainty_array(self, shape):
+        """Standard uncertainty per pixel as an (M, N) float64 array (0 where unknown)."""
+        if self.uncertainty is None:
+            return np.zeros(shape)
+        return np.broadcast_to(np.asarray(self.uncertainty, float), shape).astype(float)
+
+    def with_view_angles(self, zone, factors, metal_below=None):
+        """Emissivity with a viewing-angle factor per zone of pixels.
+
+        Parameters
+        ----------
+        zone : ndarray of int, shape (M, N)
+            Zone number of each pixel, 0 .. len(factors) - 1.
+        factors : array_like of shape (Z,)
+            eps(theta)/eps(0) of each zone (1 for a zone seen normally).
+        metal_below : float, optional
+            Pixels whose emissivity is below this keep factor 1 (metals: not modelled).
+
+        Returns
+        -------
+        EmissivityField
+            In label form when the field was a number or labels (one label per
+            (material, zone) pair present), so the lookup plan still applies; a map
+            when it was a map.
+        """
+        zone = np.asarray(zone, np.int64)
+        f = np.asarray(factors, float)
+        nz = f.size
+        shape = zone.shape
+        u = self.uncertainty_array(shape)
+        if self.map is not None:
+            m = self.map.astype(float)
+            fz = f[zone]
+            if metal_below is not None:
+                fz = np.where(m < metal_below, 1.0, fz)
+            return EmissivityField(map=m * fz, description=self.description, uncertainty=u * fz)
+        if self.value is not None:
+            base_index, base_values = np.zeros(shape, np.int64), np.array([self.value], float)
+        else:
+            base_index, base_values = self.index.astype(np.int64), np.asarray(self.values, float)
+        combo = base_index * nz + zone
+        present, inv = np.unique(combo, return_inverse=True)
+        mat, zz = present // nz, present % nz
+        fac = f[zz]
+        if metal_below is not None:
+            fac = np.where(base_values[mat] < metal_below, 1.0, fac)
+        index = inv.reshape(shape).astype(np.int32)
+        fpix = fac[index]
+        if present.size == 1 and self.value is not None:
+            return EmissivityField(value=float(base_values[0] * fac[0]), description=self.description,
+                                   uncertainty=u * fpix if np.any(u) else self.uncertainty)
+        return EmissivityField(index=index, values=base_values[mat] * fac, description=self.description,
+                               uncertainty=u * fpix)
+
+
+METAL_EMISSIVITY = 0.5       # below this a surface is treated as a metal (common practice, no source)
+WIDE_VIEW_ANGLE_DEG = 60.0   # beyond this the Fresnel fall-off is steep (practice 45-60 deg, from memory)
 
 
 def material_emissivity(name, library):
@@ -111,3 +176,93 @@ def oblique_factor(angle_deg, refractive_index=1.5):
     """
     th = np.deg2rad(np.asarray(angle_deg, float))
     return fresnel_emissivity(th, refractive_index) / fresnel_emissivity(0.0, refractive_index)
+
+
+def view_angle_zones(shape, stack_angle=None, regions=()):
+    """Viewing angle of every pixel, as zones.
+
+    Parameters
+    ----------
+    shape : (int, int)
+        (rows, cols) of the image.
+    stack_angle : float, optional
+        Angle of the whole stack [deg]; None for a normal view.
+    regions : sequence of (name, mask, angle_deg)
+        Regions with their own angle; a region's angle replaces the stack's for its
+        pixels, and a later region replaces an earlier one where they overlap.
+
+    Returns
+    -------
+    zone : ndarray of int32, shape (M, N)
+        Zone of each pixel.
+    angles : list of float or None
+        Angle of each zone [deg] (None: seen normally, no correction).
+    """
+    zone = np.zeros(shape, np.int32)
+    angles = [None if stack_angle is None else float(stack_angle)]
+    for _, mask, angle in regions:
+        a = float(angle)
+        if a in angles:
+            k = angles.index(a)
+        else:
+            angles.append(a)
+            k = len(angles) - 1
+        zone[np.asarray(mask, bool)] = k
+    return zone, angles
+
+
+def apply_view_angles(field, shape, stack_angle=None, regions=(), refractive_index=1.5):
+    """Correct a near-normal emissivity field for oblique views, stack-wide and per region.
+
+    Parameters
+    ----------
+    field : EmissivityField
+        Near-normal emissivity of the pixels.
+    shape : (int, int)
+        (rows, cols).
+    stack_angle : float, optional
+        Viewing angle of the stack from the surface normal [deg].
+    regions : sequence of (name, mask, angle_deg)
+        Regions with their own viewing angle (see ``view_angle_zones``).
+    refractive_index : float
+        Real refractive index of the dielectric model (``oblique_factor``).
+
+    Returns
+    -------
+    field : EmissivityField
+        Corrected field (unchanged when no angle is given).
+    warnings : list of str
+        Views beyond ``WIDE_VIEW_ANGLE_DEG``, and pixels left uncorrected because their
+        emissivity is below ``METAL_EMISSIVITY`` (metals are not modelled).
+
+    Notes
+    -----
+    eps(theta) = eps(0) * eps_F(theta; n) / eps_F(0; n), with eps_F from the Fresnel
+    equations for a smooth dielectric ([1]_; ``oblique_factor``). Metals, whose
+    directional emissivity rises toward grazing views and depends on the surface state,
+    keep their table value.
+    """
+    if stack_angle is None and not regions:
+        return field, []
+    zone, angles = view_angle_zones(shape, stack_angle, regions)
+    factors = [1.0 if a is None else float(oblique_factor(a, refractive_index)) for a in angles]
+    warnings = []
+    eps = field.as_array(shape)
+    where = [("stack", np.ones(shape, bool) if not regions else zone == 0, stack_angle)]
+    where += [(f"region '{n}'", np.asarray(mk, bool), float(a)) for n, mk, a in regions]
+    for label, m, a in where:
+        if a is None or not m.any():
+            continue
+        if a > WIDE_VIEW_ANGLE_DEG:
+            warnings.append(f"{label}: viewing angle {a:g} deg is beyond {WIDE_VIEW_ANGLE_DEG:g} deg from the "
+                            "surface normal; the emissivity falls steeply there, so the corrected temperature "
+                            "is unreliable: take the image closer to the normal")
+        metal = int((m & (eps < METAL_EMISSIVITY)).sum())
+        if metal and a > 0:
+            warnings.append(f"{label}: {metal} pixel(s) with emissivity below {METAL_EMISSIVITY:g} (metals) get "
+                            f"no viewing-angle correction: the directional emissivity of metals is not modelled")
+    out = field.with_view_angles(zone, factors, metal_below=METAL_EMISSIVITY)
+    parts = [f"{'stack ' if i == 0 else ''}{a:g} deg x{f:.4f}" for i, (a, f) in enumerate(zip(angles, factors))
+             if a is not None]
+    out.description = f"{field.description}; view-angle correction (n = {refractive_index:g}): " + ", ".join(parts)
+    return out, warnings

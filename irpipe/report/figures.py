@@ -17,6 +17,7 @@ LINE_CMAP = "viridis"              # line colours of the trend plot, sampled eve
 INVALID_COLOUR = "#8c8c8c"
 DPI = 110
 WIDTH_IN = 7.4
+PLOT_H_IN = 2.9           # height of the histogram and trend plots [in]
 _INK = "#1b1b1b"
 
 
@@ -134,8 +135,8 @@ def histogram(picture, max_bins=90):
 
     edges = np.asarray(picture.get("hist_edges_c", []), float)
     counts = np.asarray(picture.get("hist_counts", []), float)
-    fig = _new_figure(WIDTH_IN / 2, 2.5)
-    ax = fig.add_axes([0.17, 0.19, 0.78, 0.70])
+    fig = _new_figure(WIDTH_IN / 2, PLOT_H_IN)
+    ax = fig.add_axes([0.17, 0.47 / PLOT_H_IN, 0.78, (PLOT_H_IN - 0.8) / PLOT_H_IN])
     _style(ax)
     ax.set_title("Histogram of valid values, all frames", fontsize=8.5, color=_INK, loc="left")
     ax.set_xlabel("surface temperature [°C]", fontsize=8, color=_INK)
@@ -175,8 +176,11 @@ def trend(regions, reflected_series_c=None):
     n_frames = max([len(s[1]) for s in series] + [len(reflected_series_c or [])] + [0])
     if n_frames < 2:
         return None
-    fig = _new_figure(WIDTH_IN / 2, 2.5)
-    ax = fig.add_axes([0.15, 0.19, 0.52, 0.70])
+    n_lines = len(series) + (1 if reflected_series_c else 0)
+    legend_in = 0.17 * -(-n_lines // 2) + 0.1
+    h = max(PLOT_H_IN, 0.47 + legend_in + 1.5 + 0.33)
+    fig = _new_figure(WIDTH_IN / 2, h)
+    ax = fig.add_axes([0.17, (0.47 + legend_in) / h, 0.78, (h - 0.47 - legend_in - 0.33) / h])
     _style(ax)
     ax.set_title("Region mean per frame (band: min to max)", fontsize=8.5, color=_INK, loc="left")
     ax.set_xlabel("frame", fontsize=8, color=_INK)
@@ -197,5 +201,6 @@ def trend(regions, reflected_series_c=None):
                 label="reflected temperature")
     ax.xaxis.get_major_locator().set_params(integer=True)
     ax.grid(linewidth=0.4, color="#dddddd")
-    ax.legend(fontsize=6.5, loc="upper left", bbox_to_anchor=(1.02, 1.0), frameon=False, handlelength=1.6)
+    fig.legend(*ax.get_legend_handles_labels(), fontsize=7, loc="lower left", bbox_to_anchor=(0.1, 0.01),
+               ncol=2, frameon=False, handlelength=1.8, columnspacing=1.2)
     return _png(fig)

@@ -54,8 +54,9 @@ tr { break-inside: avoid; page-break-inside: avoid; }
 figure { margin: 12px 0; break-inside: avoid; page-break-inside: avoid; }
 figure img { display: block; max-width: 100%; height: auto; border: 1px solid var(--rule); }
 figcaption { font-size: 11.5px; color: var(--muted); margin-top: 4px; }
-.badge { display: inline-block; padding: 0 6px; border-radius: 3px; font-size: 11px; font-weight: 600;
-         white-space: nowrap; border: 1px solid #888; }
+.badge { display: inline-block; padding: 0 6px; margin: 1px 0; border-radius: 3px; font-size: 11px;
+         font-weight: 600; white-space: nowrap; border: 1px solid #888; }
+td { overflow-wrap: anywhere; }
 .p1 { background: #7d1d1d; color: #fff; border-color: #7d1d1d; }
 .p2 { background: #b4541c; color: #fff; border-color: #b4541c; }
 .p3 { background: #f0cf73; color: #1d232b; border-color: #c9a84d; }
@@ -119,8 +120,12 @@ def _badge(f):
     if f["kind"] == "electrical" and f.get("priority") is not None:
         return f'<span class="badge p{min(int(f["priority"]), 4)}">{_e(f["severity"])} (priority {f["priority"]})</span>'
     if f["kind"] == "envelope":
-        return f'<span class="badge env">{_e(f["severity"])}</span>'
-    return "–"
+        return _env_badges((f["severity"] or "").split("; "))
+    return ""
+
+
+def _env_badges(fails):
+    return " ".join(f'<span class="badge env">{_e(x)}</span>' for x in fails if x)
 
 
 def _img(png, alt, width=None):
@@ -134,13 +139,15 @@ def _kv(rows):
     return f'<table class="kv"><tbody>{body}</tbody></table>'
 
 
-def _table(head, rows, numeric=()):
-    th = "".join(f'<th class="n">{h}</th>' if i in numeric else f"<th>{h}</th>" for i, h in enumerate(head))
-    body = []
-    for r in rows:
-        tds = "".join(f'<td class="n">{c}</td>' if i in numeric else f"<td>{c}</td>" for i, c in enumerate(r))
-        body.append(f"<tr>{tds}</tr>")
-    return f"<table><thead><tr>{th}</tr></thead><tbody>{''.join(body)}</tbody></table>"
+def _table(head, rows, numeric=(), nowrap=(), cls=""):
+    def attr(i):
+        c = " ".join(n for n, on in (("n", i in numeric), ("loc", i in nowrap)) if on)
+        return f' class="{c}"' if c else ""
+
+    th = "".join(f"<th{attr(i)}>{h}</th>" for i, h in enumerate(head))
+    body = ["<tr>" + "".join(f"<td{attr(i)}>{c}</td>" for i, c in enumerate(r)) + "</tr>" for r in rows]
+    klass = f' class="{cls}"' if cls else ""
+    return f"<table{klass}><thead><tr>{th}</tr></thead><tbody>{''.join(body)}</tbody></table>"
 
 
 # --- sections -------------------------------------------------------------------------
@@ -168,11 +175,12 @@ def _finding_rows(findings, with_stack):
         if with_stack:
             r.append(_e(f["stack"]))
         r += [_e(tables.KIND_LABEL.get(f["kind"], f["kind"])) + (f" <i>{_e(f['region'])}</i>" if f.get("region") else ""),
-              _loc(f), value, _f(f["delta_k"], 1, " K"), _badge(f)]
-        if not with_stack:
-            r.insert(5, _f(f["mean_c"], 1, " °C"))
-            r.insert(6, _e(f["area_px"]))
-            r.append(_e(f["detail"]))
+              _loc(f), value, _f(f["delta_k"], 1, " K")]
+        if with_stack:
+            r.append(_badge(f) or "–")
+        else:
+            r += [_f(f["mean_c"], 1, " °C"), _e(f["area_px"]),
+                  " ".join(x for x in (_badge(f), _e(f["detail"])) if x)]
         rows.append(r)
     return rows
 
@@ -192,7 +200,7 @@ def _summary(report, findings):
     if findings:
         out.append("<h3>Numbered findings</h3>")
         out.append(_table(["No.", "Stack", "Finding", "Location", "Peak / lowest", "Difference", "Grade"],
-                          _finding_rows(findings, True), numeric=(0, 4, 5)))
+                          _finding_rows(findings, True), numeric=(0, 4, 5), nowrap=(1, 3)))
     else:
         out.append('<div class="box ok">No findings were raised by the configured thresholds and '
                    'assessments.</div>')
@@ -277,7 +285,7 @@ def _region_tables(st):
                      _f(r.get("std_c"), 2), _f(r.get("p05_c"), 2), _f(r.get("p95_c"), 2),
                      _loc(r.get("min_at")), _loc(r.get("max_at"))])
     out = ["<h3>Region temperatures</h3>",
-           _table(head, rows, numeric=(1, 2, 3, 4, 5, 6, 7)),
+           _table(head, rows, numeric=(1, 2, 3, 4, 5, 6, 7), nowrap=(8, 9)),
            '<p class="note">Statistics over all valid pixel values of all frames; locations as row, '
            'column and frame (r, c, f), counted from 0 at the top left.'
            + (' U is the expanded uncertainty with coverage factor k = 2.' if has_u else '') + '</p>']
@@ -290,7 +298,7 @@ def _region_tables(st):
             rows.append([_e(r["name"]), _f(r.get("minimum_surface_c"), 2), _f(r.get("temperature_factor"), 3),
                          _f(r.get("critical_temperature_factor"), 2), _f(r.get("surface_relative_humidity_pct"), 0),
                          _yn(r.get("mould_risk")), _yn(r.get("condensation_risk")),
-                         f'<span class="badge env">{_e("; ".join(fails))}</span>' if fails else "passes"])
+                         _env_badges(fails) if fails else "passes"])
         out += ["<h3>Envelope assessment</h3>",
                 _table(["Region", "Lowest surface [°C]", "Temperature factor", "Critical factor",
                         "Surface RH [%]", "Mould risk", "Condensation risk", "Result"], rows, numeric=(1, 2, 3, 4)),
@@ -375,7 +383,7 @@ def _stack_section(k, st, picture, findings, fig_no):
     out.append("<h3>Findings</h3>")
     if mine:
         out.append(_table(["No.", "Finding", "Location", "Peak / lowest", "Difference", "Mean", "Area [px]",
-                           "Grade", "Detail"], _finding_rows(mine, False), numeric=(0, 3, 4, 5, 6)))
+                           "Assessment"], _finding_rows(mine, False), numeric=(0, 3, 4, 5, 6), nowrap=(2,)))
     else:
         out.append('<p class="note">No findings for this stack.</p>')
     out.append("</section>")
