@@ -58,8 +58,9 @@ def load_yaml(text: str, filename: str = "<config>"):
 
     Raises ConfigError with the file, line and column on a syntax error.
     """
-    loader = yaml.SafeLoader(text)
+    loader = None
     try:
+        loader = yaml.SafeLoader(text)
         node = loader.get_single_node()
         marks = _Marks()
         if node is None:
@@ -78,7 +79,8 @@ def load_yaml(text: str, filename: str = "<config>"):
     except yaml.YAMLError as exc:
         raise ConfigError(f"{filename}: YAML syntax error: {exc}".replace("\n", " ")) from None
     finally:
-        loader.dispose()
+        if loader is not None:
+            loader.dispose()
 
 
 def dotted_key(path) -> str:

@@ -50,6 +50,14 @@ class RadiometricStage(Stage):
         else:
             self.eps = eps.as_array(ctx.shape[1:])
         ctx.report["plan"] = "lookup" if self.lookup else "per-pixel"
+        # read-only accessors for later stages (uncertainty): how raw values became signal
+        # and temperature; the chunks carry chunk.extras["lookup_index"] or ["signal"]
+        ctx.shared["radiometric"] = {
+            "plan": ctx.report["plan"], "signal": self.signal, "model": self.model,
+            "air_temperature_k": self.air_k, "reflected_temperature_k": self.refl_k,
+            "lut_c": self.lut if self.lookup else None, "base": self.base if self.lookup else None,
+            "emissivity_values": self.eps_values if self.lookup else None,
+            "emissivity": None if self.lookup else self.eps}
 
     # -- linearisation ---------------------------------------------------------------
     def signal(self, raw):
@@ -84,6 +92,7 @@ class RadiometricStage(Stage):
         s, reason = self.signal(values)
         eps = ctx.emissivity
         eps_values = [eps.value] if eps.value is not None else list(eps.values)
+        self.eps_values = eps_values
         nv = values.size
         self.lut = np.empty((len(eps_values), nv), np.float32)
         self.reason_lut = np.empty((len(eps_values), nv), np.uint8)
@@ -110,9 +119,11 @@ class RadiometricStage(Stage):
             else:
                 idx = np.add(raw, self.offsets, dtype=np.int32)
             chunk.temperature_c = self.lut_flat.take(idx)
+            chunk.extras["lookup_index"] = idx
             self.hist += np.bincount(idx.ravel(), minlength=self.hist.size)
             return
         s, reason = self.signal(raw)
+        chunk.extras["signal"] = s
         if self.refl_k is None:
             refl = self._reflector_temperature(s, reason, ctx)
             chunk.extras["reflected_temperature_k"] = refl.reshape(-1)

@@ -17,4 +17,9 @@ class RegionStatsStage(Stage):
             a.update(chunk.temperature_c, chunk.first)
 
     def finish(self, ctx):
-        ctx.report["regions"] = [a.result() for a in self.acc]
+        regions = [a.result() for a in self.acc]
+        # per-region figures of stages that run before this one (uncertainty stage)
+        extra = ctx.shared.get("region_uncertainty") or {}
+        for r in regions:
+            r.update(extra.get(r["name"], {}))
+        ctx.report["regions"] = regions
