@@ -104,6 +104,7 @@ stacks:
   - name: porch-door
     path: porch_door.tif
     assessment: general
+    view_from: outside
     conditions:
       emissivity: paint-non-metallic
       reflected_temperature_c: {reflector: foil}

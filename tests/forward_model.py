@@ -26,13 +26,15 @@ def planck(lam, t):
 class Camera:
     """Rectangular band [lo, hi] um on a 1 nm grid."""
 
-    def __init__(self, lo_um=7.5, hi_um=14.0):
+    def __init__(self, lo_um=7.5, hi_um=14.0, response=None):
         n = int(round((hi_um - lo_um) * 1000)) + 1
         self.lam = np.linspace(lo_um, hi_um, n) * 1e-6
+        # optional relative response: (wavelength_um, response) table, linear interpolation
+        self.resp = np.ones_like(self.lam) if response is None else np.interp(self.lam * 1e6, *response)
 
     def band(self, t, tau=None):
         t = np.asarray(t, float)
-        w = np.ones_like(self.lam) if tau is None else tau
+        w = self.resp if tau is None else tau * self.resp
         flat = t.reshape(-1, 1)
         return simpson(planck(self.lam[None], flat) * w[None], x=self.lam, axis=1).reshape(t.shape)
 

@@ -164,3 +164,28 @@ def test_hot_plate_through_humid_air(tmp_path, distance, tol):
     apparent = cam.apparent(l[10, 20]) - K0
     if distance >= 30:
         assert abs(apparent - 60.0) > tol
+
+
+def test_float_apparent_temperature_with_tabulated_response(tmp_path):
+    # a tabulated (triangular) spectral response from CSV, float32 apparent-temperature input
+    # in kelvin, NaN pixels from the camera stay NaN and are counted
+    resp = (np.array([7.5, 10.0, 14.0]), np.array([0.2, 1.0, 0.3]))
+    (tmp_path / "resp.csv").write_text("wavelength_um,response\n" +
+                                       "".join(f"{w},{r}\n" for w, r in zip(*resp)))
+    cam = Camera(7.5, 14.0, response=resp)
+    t = np.full((20, 30), 35.0)
+    t[:, 15:] = 50.0
+    l = cam.received(t + K0, 0.9, 20.0 + K0, 20.0 + K0)
+    grid = np.linspace(250.0, 400.0, 15001)
+    tapp = np.interp(l, cam.band(grid), grid).astype(np.float32)   # blackbody-equivalent, same response
+    tapp[0, 0] = np.nan
+    tifffile.imwrite(tmp_path / "s.tif", np.stack([tapp, tapp]), photometric="minisblack")
+    cfg = tmp_path / "c.yaml"
+    cfg.write_text("camera: {spectral_response: resp.csv, input: apparent_temperature, raw_scale: 1.0, raw_offset: 0.0}\n"
+                   "conditions: {emissivity: 0.9, reflected_temperature_c: 20, air_temperature_c: 20, distance_m: 0}\n"
+                   "stacks: [{name: s, path: s.tif, regions: [{name: a, rect: [2, 2, 18, 14]}, {name: b, rect: [2, 16, 18, 28]}]}]\n")
+    run(cfg, tmp_path / "o")
+    rep = json.loads((tmp_path / "o" / "report.json").read_text())["stacks"][0]
+    got = {r["name"]: r["mean_c"] for r in rep["regions"]}
+    assert abs(got["a"] - 35.0) < 0.02 and abs(got["b"] - 50.0) < 0.02
+    assert rep["invalid_pixels"]["invalid_input"] == 2 and rep["plan"] == "per-pixel"

@@ -56,7 +56,7 @@ figure img { display: block; max-width: 100%; height: auto; border: 1px solid va
 figcaption { font-size: 11.5px; color: var(--muted); margin-top: 4px; }
 .badge { display: inline-block; padding: 0 6px; margin: 1px 0; border-radius: 3px; font-size: 11px;
          font-weight: 600; white-space: nowrap; border: 1px solid #888; }
-td { overflow-wrap: anywhere; }
+td { overflow-wrap: break-word; }
 .p1 { background: #7d1d1d; color: #fff; border-color: #7d1d1d; }
 .p2 { background: #b4541c; color: #fff; border-color: #b4541c; }
 .p3 { background: #f0cf73; color: #1d232b; border-color: #c9a84d; }

@@ -83,7 +83,7 @@ def build_findings(report):
             if d_ref is not None:
                 bits.append(f"{d_ref:.1f} K over {ref}")
             if d_amb is not None:
-                bits.append(f"{d_amb:.1f} K over ambient air ({_num(c.get('ambient_c')) or 0:g} C)")
+                bits.append(f"{d_amb:.1f} K over ambient air ({_num(c.get('ambient_c')) or 0:g} °C)")
             scaled = _num(c.get("rise_over_ambient_at_rated_load_k"))
             if scaled is not None:
                 bits.append(f"{scaled:.1f} K over ambient scaled to rated load")
@@ -110,7 +110,7 @@ def build_findings(report):
                 bits.append(f"surface relative humidity {rh:.0f} %")
             tmin = _num(r.get("minimum_surface_c"))
             if tmin is not None:
-                bits.append(f"lowest surface temperature {tmin:.1f} C (3x3 mean)")
+                bits.append(f"lowest surface temperature {tmin:.1f} °C (3x3 mean)")
             items.append(dict(stack=name, kind="envelope", region=r["name"], frame=at.get("frame"),
                               row=at.get("row"), col=at.get("col"),
                               peak_c=tmin if tmin is not None else _num(r.get("min_c")),
@@ -126,7 +126,7 @@ def build_findings(report):
                 detail = f"{abs(d):.1f} K {'above' if d >= 0 else 'below'} {ref or 'the reference'}"
             thr = _num(s.get("threshold_c"))
             if thr is not None:
-                detail += ("; " if detail else "") + f"threshold {thr:.2f} C"
+                detail += ("; " if detail else "") + f"threshold {thr:.2f} °C"
             items.append(dict(stack=name, kind=kind, region=None, frame=s.get("frame"), row=s.get("row"),
                               col=s.get("col"), peak_c=_num(s.get("peak_c")), mean_c=_num(s.get("mean_c")),
                               area_px=s.get("area_px"), delta_k=d, reference=ref, severity=None,

@@ -26,7 +26,7 @@ class EnvelopeStage(Stage):
     def applies(cls, ctx):
         s = ctx.cfg.data.get("survey", {})
         return ("indoor_air_c" in s and "outdoor_air_c" in s and ctx.masks
-                and ctx.stack.get("assessment") == "envelope" and ctx.stack.get("view_from", "inside") == "inside")
+                and ctx.stack.get("assessment") != "electrical" and ctx.stack.get("view_from", "inside") == "inside")
 
     def start(self, ctx):
         self.sum = np.zeros(ctx.shape[1:], np.float64)

@@ -1,8 +1,89 @@
-"""Per-pixel measurement uncertainty (GUM). Filled in by the uncertainty work; until the
-config asks for it the stage is not in the chain."""
+"""Uncertainty stage: per-pixel expanded uncertainty (k = 2) of the corrected temperature,
+by the GUM law of propagation (``irpipe.uncertainty.gum_uncertainty``), written to
+``<name>.uncertainty.tif`` (float32 [K], same shape as the temperature, NaN where the
+temperature is invalid), with per-region figures for the report.
+
+It is in the chain when the config's ``uncertainty:`` section has a non-zero value. The
+standard uncertainty of the emissivity is ``uncertainty.emissivity`` for every pixel when
+given, otherwise each material's ``uncertainty`` from the material library (0 for
+emissivities given as plain numbers).
+
+Execution follows the radiometric stage's plan:
+
+* lookup plan: U is a function of (raw value, emissivity label) only, so one table of U
+  per label over every raw value is built at start and each pixel is a gather with the
+  temperature's own index;
+* per-pixel plan: the propagation runs vectorised per frame, with the per-frame reflected
+  temperature of the reflector method where there is one.
+
+Per region the report gets ``expanded_uncertainty_k``: the **mean of the per-pixel U**
+over the region's valid values. It is deliberately not the uncertainty of the region's
+mean temperature computed as if pixels were independent: the dominant inputs
+(emissivity, reflected temperature, path, camera calibration) are common to all pixels
+of a region, fully correlated, so averaging pixels does not reduce them, and the mean of
+the per-pixel U is the figure that can be defended (JCGM 100:2008 Sect. 5.2 on
+correlated inputs). ``uncertainty_budget_k`` gives the RMS standard contribution
+|c_i| u(x_i) of each input over the region.
+
+References
+----------
+.. [1] JCGM 100:2008, "Evaluation of measurement data - Guide to the expression of
+   uncertainty in measurement", BIPM (2008).
+"""
 from __future__ import annotations
 
+import json
+
+import numpy as np
+
+from .. import __version__
+from ..constants import ZERO_CELSIUS
+from ..emissivity import METAL_EMISSIVITY
+from ..io import StackWriter
+from ..uncertainty import COVERAGE_FACTOR, InputUncertainties, ModelCache, gum_uncertainty
 from . import Stage
+
+CONFIG_KEYS = {"emissivity": "emissivity", "reflected_temperature": "reflected_temperature_k",
+               "air_temperature": "air_temperature_k", "relative_humidity": "relative_humidity_pct",
+               "distance": "distance_m", "camera": "camera_k"}
+METHOD = ("GUM law of propagation of uncertainty (JCGM 100:2008), uncorrelated inputs, sensitivity "
+          "coefficients by central differences of the exact inversion; expanded uncertainty U = 2 u_c")
+
+
+def model_factory(ctx):
+    """A ``ModelCache`` of measurement models for perturbed path conditions of a stack.
+
+    The path is rebuilt exactly as the pipeline builds it (``pipeline.path_transmittance``);
+    a perturbation that leaves the transmittance unchanged (forced flat transmittance,
+    distance 0) returns the stack's own model.
+    """
+    from ..correction import MeasurementModel
+    from ..errors import ConfigError
+    from ..pipeline import path_transmittance
+
+    base = ctx.model
+    where = f"{ctx.cfg.path.name}, stacks[{ctx.index}] conditions (uncertainty: perturbed path)"
+
+    def make(air_temperature, relative_humidity, distance):
+        cond = dict(ctx.conditions, air_temperature_c=air_temperature - ZERO_CELSIUS,
+                    relative_humidity_pct=relative_humidity * 100.0, distance_m=distance)
+        tau, _ = path_transmittance(cond, ctx.camera.response, where)
+        t = np.asarray(tau, float)
+        if t.shape == base.tau.shape and np.array_equal(t, base.tau):
+            return base
+        try:
+            return MeasurementModel(ctx.camera, tau, base.t_range)
+        except ValueError as exc:
+            raise ConfigError(f"{where}: {exc}") from None
+
+    return ModelCache(make, known={nominal_path(ctx): base})
+
+
+def nominal_path(ctx):
+    """(air temperature [K], relative humidity [fraction], distance [m]) of a stack."""
+    c = ctx.conditions
+    rh = c.get("relative_humidity_pct")
+    return (c["air_temperature_c"] + ZERO_CELSIUS, 0.0 if rh is None else rh / 100.0, float(c.get("distance_m", 0.0)))
 
 
 class UncertaintyStage(Stage):
@@ -10,4 +91,157 @@ class UncertaintyStage(Stage):
 
     @classmethod
     def applies(cls, ctx):
-        return False
+        sec = ctx.cfg.data.get("uncertainty") or {}
+        return any(bool(v) for v in sec.values())
+
+    def start(self, ctx):
+        self.sec = dict(ctx.cfg.data.get("uncertainty") or {})
+        rad = ctx.shared["radiometric"]
+        self.rad = rad
+        self.shape2 = ctx.shape[1:]
+        self.path = nominal_path(ctx)
+        self.models = model_factory(ctx)
+        eps_field = ctx.emissivity
+        if "emissivity" in self.sec:
+            self.u_eps_source = "uncertainty.emissivity (all pixels)"
+            u_eps_map = np.full(self.shape2, float(self.sec["emissivity"]))
+        else:
+            self.u_eps_source = "material library (per material)"
+            u_eps_map = eps_field.uncertainty_array(self.shape2)
+        self.u_base = InputUncertainties.from_config(self.sec, emissivity=0.0)
+        self.lookup = rad["plan"] == "lookup"
+        self.inputs = tuple(n for n in InputUncertainties.from_config(self.sec, emissivity=u_eps_map).active())
+        if self.lookup:
+            self._build_tables(ctx, eps_field, u_eps_map)
+        else:
+            self.eps = np.asarray(rad["emissivity"], np.float64)
+            self.u_eps = u_eps_map
+        # per-region accumulators (flat pixel indices)
+        self.regions = {n: np.flatnonzero(m) for n, m in ctx.masks.items()}
+        self.acc = {n: {"sum": 0.0, "n": 0, "max": -np.inf, "sq": {k: 0.0 for k in self.inputs}}
+                    for n in self.regions}
+        eps_img = eps_field.as_array(self.shape2).ravel()
+        self.region_eps = {n: float(eps_img[i].mean()) for n, i in self.regions.items()}
+        self.file = f"{ctx.name}.uncertainty.tif"
+        meta = {"software": "irpipe", "version": __version__,
+                "quantity": "expanded uncertainty of the surface temperature", "units": "K",
+                "coverage_factor": COVERAGE_FACTOR, "method": METHOD, "axes": "frame,row,col", "stack": ctx.name,
+                "source": str(ctx.stack["path"].name), "standard_uncertainties": self.sec,
+                "emissivity_uncertainty": self.u_eps_source}
+        self.writer = StackWriter(ctx.out_dir / self.file, ctx.shape, json.dumps(meta, default=str))
+
+    # -- lookup plan: U(raw value, label) ------------------------------------------------
+    def _build_tables(self, ctx, eps_field, u_eps_map):
+        rad = self.rad
+        lut = rad["lut_c"]
+        n_lab, nv = lut.shape
+        values = np.arange(rad["base"], rad["base"] + nv, dtype=np.int64)
+        s_all, _ = rad["signal"](values)
+        if eps_field.value is not None:
+            u_lab = [float(u_eps_map.flat[0])]
+        else:
+            first = np.unique(eps_field.index.ravel(), return_index=True)
+            u_lab = np.zeros(n_lab)
+            u_lab[first[0]] = u_eps_map.ravel()[first[1]]
+        self.table = np.full((n_lab, nv), np.nan, np.float32)
+        self.contrib = {k: np.full((n_lab, nv), np.nan, np.float32) for k in self.inputs}
+        refl = rad["reflected_temperature_k"]
+        for k, e in enumerate(rad["emissivity_values"]):
+            ok = np.isfinite(lut[k])
+            if not ok.any():
+                continue
+            u = InputUncertainties(**{**self.u_base.__dict__, "emissivity": float(u_lab[k])})
+            uc, parts = gum_uncertainty(s_all[ok], float(e), refl, *self.path, u, self.models, budget=True)
+            self.table[k, ok] = COVERAGE_FACTOR * uc
+            for name in self.inputs:
+                if name in parts:
+                    self.contrib[name][k, ok] = parts[name]
+                else:
+                    self.contrib[name][k, ok] = 0.0
+        self.table_flat = self.table.ravel()
+        self.contrib_flat = {k: v.ravel() for k, v in self.contrib.items()}
+
+    # -- streaming -----------------------------------------------------------------------
+    def process(self, chunk, ctx):
+        n = chunk.n
+        valid = np.isfinite(chunk.temperature_c)
+        if self.lookup:
+            idx = chunk.extras["lookup_index"]
+            big_u = self.table_flat.take(idx)
+            big_u[~valid] = np.nan
+            flat_idx = idx.reshape(n, -1)
+            parts = {k: (lambda ii, k=k: self.contrib_flat[k].take(flat_idx[:, ii])) for k in self.inputs}
+        else:
+            s = chunk.extras["signal"]
+            refl = chunk.extras.get("reflected_temperature_k")
+            big_u = np.empty(chunk.temperature_c.shape, np.float32)
+            full = {k: np.empty((n,) + self.shape2, np.float32) for k in self.inputs}
+            for f in range(n):
+                tr = self.rad["reflected_temperature_k"] if refl is None else float(refl[f])
+                u = InputUncertainties(**{**self.u_base.__dict__, "emissivity": self.u_eps})
+                uc, contrib = gum_uncertainty(s[f], self.eps, tr, *self.path, u, self.models, budget=True)
+                big_u[f] = COVERAGE_FACTOR * uc
+                for k in self.inputs:
+                    full[k][f] = contrib.get(k, 0.0)
+            big_u[~valid] = np.nan
+            parts = {k: (lambda ii, k=k: full[k].reshape(n, -1)[:, ii]) for k in self.inputs}
+        self.writer.write(big_u)
+        flat_u = big_u.reshape(n, -1)
+        for name, ii in self.regions.items():
+            v = flat_u[:, ii].astype(np.float64)
+            ok = np.isfinite(v)
+            if not ok.any():
+                continue
+            a = self.acc[name]
+            a["sum"] += float(v[ok].sum())
+            a["n"] += int(ok.sum())
+            a["max"] = max(a["max"], float(v[ok].max()))
+            for k in self.inputs:
+                c = parts[k](ii).astype(np.float64)
+                a["sq"][k] += float((c[ok] ** 2).sum())
+
+    def finish(self, ctx):
+        self.writer.commit()
+        ctx.outputs["uncertainty"] = self.file
+        limit = self.sec.get("limit_k")
+        out = {}
+        for name, a in self.acc.items():
+            e = self.region_eps[name]
+            if a["n"] == 0:
+                out[name] = {"expanded_uncertainty_k": None, "expanded_uncertainty_max_k": None,
+                             "coverage_factor": COVERAGE_FACTOR, "uncertainty_budget_k": {},
+                             "emissivity_mean": round(e, 4), "uncertainty_flag": _flag(None, e, limit)}
+                continue
+            mean_u = a["sum"] / a["n"]
+            out[name] = {
+                "expanded_uncertainty_k": round(mean_u, 4),
+                "expanded_uncertainty_max_k": round(a["max"], 4),
+                "coverage_factor": COVERAGE_FACTOR,
+                "uncertainty_budget_k": {CONFIG_KEYS[k]: round(float(np.sqrt(a["sq"][k] / a["n"])), 4)
+                                         for k in self.inputs},
+                "emissivity_mean": round(e, 4),
+                "uncertainty_flag": _flag(mean_u, e, limit),
+            }
+        ctx.shared["region_uncertainty"] = out
+        ctx.report["uncertainty"] = {
+            "method": METHOD, "coverage_factor": COVERAGE_FACTOR,
+            "standard_uncertainties": self.sec, "emissivity_uncertainty": self.u_eps_source,
+            "region_figure": "expanded_uncertainty_k is the mean of the per-pixel U over the region "
+                             "(inputs are common to its pixels, so averaging pixels does not reduce it)",
+            "limit_k": limit, "file": self.file}
+
+    def abort(self, ctx):
+        if hasattr(self, "writer"):
+            self.writer.abort()
+
+
+def _flag(mean_u, emissivity, limit):
+    """Text explaining why a region's figure should not be relied on, or None."""
+    why = []
+    if limit is not None and mean_u is not None and mean_u > limit:
+        why.append(f"expanded uncertainty {mean_u:.2f} K exceeds the limit {limit:g} K (uncertainty.limit_k)")
+    if emissivity < METAL_EMISSIVITY:
+        why.append(f"emissivity {emissivity:.2f} is below {METAL_EMISSIVITY:g}: the reading is dominated by "
+                   "reflected radiation; measure the emissivity on site (ASTM E1933) or apply tape or paint "
+                   "of known emissivity")
+    return "; ".join(why) or None
