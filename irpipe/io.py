@@ -11,6 +11,7 @@ import csv
 import hashlib
 import json
 import os
+import sys
 import tempfile
 from pathlib import Path
 
@@ -80,19 +81,82 @@ class StackReader:
         self.dtype = np.dtype(first.dtype)
         self.metadata = _page_description(first)
 
-    def read(self, start, stop):
-        """Frames [start, stop) as an ndarray of shape (stop-start, M, N)."""
-        out = np.empty((stop - start,) + self.shape[1:], dtype=self.dtype)
+    def read(self, start, stop, out=None):
+        """Frames [start, stop) as an ndarray of shape (stop-start, M, N).
+
+        Uncompressed pages in native byte order (what cameras and this package write)
+        are read straight into the result, one read per run of adjacent pages; anything
+        else goes through tifffile page by page. ``out``, if given, receives the frames.
+        """
+        shape = (stop - start,) + self.shape[1:]
+        if out is None:
+            out = np.empty(shape, dtype=self.dtype)
+        elif out.shape != shape or out.dtype != self.dtype or not out.flags.c_contiguous:
+            raise ValueError(f"out: expected a C-contiguous {self.dtype} array of shape {shape}")
         i = start
         try:
             if self._planar:
-                return np.ascontiguousarray(self._tif.pages[0].asarray()[start:stop])
+                out[...] = self._tif.pages[0].asarray()[start:stop]
+                return out
+            runs = self._raw_runs(start, stop)
+            if runs is not None:
+                self._read_runs(runs, start, out)
+                return out
             for k, i in enumerate(range(start, stop)):
                 self._tif.pages[i].asarray(out=out[k])
+        except StackError:
+            raise
         except Exception as exc:
             raise StackError(f"{self.path}: {self.label} frame {i} cannot be decoded ({_short(exc)}); "
                              "the file is probably truncated: copy it from the camera card again") from None
         return out
+
+    # -- direct reads of uncompressed pages ------------------------------------------
+    def _page_offsets(self):
+        """File offset of each page's image data, or None when any page needs decoding."""
+        if getattr(self, "_offsets", False) is not False:
+            return self._offsets
+        self._offsets = None
+        frame_bytes = int(np.prod(self.shape[1:])) * self.dtype.itemsize
+        native = (self._tif.byteorder == "<") == (sys.byteorder == "little") or self.dtype.itemsize == 1
+        if not native:
+            return None
+        offs = []
+        for p in _iter_pages_light(self._tif, self.frames):
+            if not (p.is_contiguous and p.predictor == 1 and p.fillorder == 1 and p.nbytes == frame_bytes
+                    and np.dtype(p.dtype) == self.dtype):
+                return None
+            offs.append(int(p.dataoffsets[0]))
+        self._offsets = np.asarray(offs, np.int64)
+        self._frame_bytes = frame_bytes
+        return self._offsets
+
+    def _raw_runs(self, start, stop):
+        offs = self._page_offsets()
+        if offs is None or stop <= start:
+            return None
+        o = offs[start:stop]
+        breaks = np.flatnonzero(np.diff(o) != self._frame_bytes) + 1
+        bounds = np.concatenate(([0], breaks, [o.size]))
+        return [(int(a), int(b), int(o[a])) for a, b in zip(bounds[:-1], bounds[1:])]
+
+    def _read_runs(self, runs, start, out):
+        if getattr(self, "_fh", None) is None:
+            self._fh = open(self.path, "rb", buffering=0)
+        buf = memoryview(out.reshape(-1).view(np.uint8))
+        fb = self._frame_bytes
+        for a, b, offset in runs:
+            view = buf[a * fb:b * fb]
+            self._fh.seek(offset)
+            got = 0
+            while got < len(view):
+                n = self._fh.readinto(view[got:])
+                if not n:
+                    bad = start + a + got // fb
+                    raise StackError(f"{self.path}: {self.label} frame {bad} cannot be read (file ends "
+                                     "early); the file is probably truncated: copy it from the camera "
+                                     "card again")
+                got += n
 
     def chunks(self, size):
         for s in range(0, self.frames, size):
@@ -101,6 +165,11 @@ class StackReader:
     def close(self):
         with contextlib.suppress(Exception):
             self._tif.close()
+        fh = getattr(self, "_fh", None)
+        if fh is not None:
+            self._fh = None
+            with contextlib.suppress(Exception):
+                fh.close()
 
     def __enter__(self):
         return self
@@ -258,9 +327,14 @@ def _json_default(o):
 class StackWriter:
     """Streaming float32 TIFF writer for (F, M, N) results, atomic on ``commit``.
 
-    Frames are appended chunk by chunk as one contiguous series; ``description`` (JSON
-    text) goes into the first page's ImageDescription.
+    Frames are appended chunk by chunk as one contiguous series (each chunk in one
+    write); ``description`` (JSON text) goes into the first page's ImageDescription.
+    Written data is handed to the operating system for write-back as it goes, so the
+    sync at ``commit`` does not have to flush the whole stack at once.
     """
+
+    #: start write-back after this many bytes since the last time [bytes]
+    WRITEBACK_BYTES = 64 << 20
 
     def __init__(self, dest, shape, description="", dtype=np.float32):
         import tifffile
@@ -270,26 +344,49 @@ class StackWriter:
         self.dtype = np.dtype(dtype)
         self._ctx = atomic_path(self.dest)
         self.tmp = self._ctx.__enter__()
-        self._tw = tifffile.TiffWriter(str(self.tmp), bigtiff=_needs_bigtiff(shape, self.dtype))
+        try:
+            self._tw = tifffile.TiffWriter(str(self.tmp), bigtiff=_needs_bigtiff(shape, self.dtype))
+        except OSError as exc:
+            self.abort()
+            raise OutputError(f"{self.dest}: cannot write ({exc.strerror}); free disk space or choose another --out") from None
         self._written = 0
         self._description = description
+        self._pending = 0
 
     def write(self, chunk):
         chunk = np.ascontiguousarray(chunk, dtype=self.dtype)
+        if chunk.ndim == 2:
+            chunk = chunk[None]
+        if chunk.shape[0] == 0:
+            return
         try:
-            for k in range(chunk.shape[0]):
-                if self._written == 0:
-                    self._tw.write(chunk[k], contiguous=True, description=self._description,
-                                   metadata=None, photometric="minisblack")
-                else:
-                    self._tw.write(chunk[k], contiguous=True, metadata=None, photometric="minisblack")
-                self._written += 1
+            kw = {"description": self._description} if self._written == 0 else {}
+            self._tw.write(chunk, contiguous=True, metadata=None, photometric="minisblack", **kw)
+            self._written += chunk.shape[0]
+            self._pending += chunk.nbytes
+            if self._pending >= self.WRITEBACK_BYTES:
+                self._pending = 0
+                self._writeback()
         except OSError as exc:
             self.abort()
             raise OutputError(f"{self.dest}: cannot write ({exc.strerror}); free disk space or choose another --out") from None
 
+    def _writeback(self):
+        """Start (not wait for) write-back of what is written so far (Linux; else a no-op)."""
+        fh = getattr(self._tw, "_fh", None)
+        try:
+            fh.flush()
+            fd = fh._fh.fileno()
+        except Exception:
+            return
+        _start_writeback(fd)
+
     def commit(self):
-        self._tw.close()
+        try:
+            self._tw.close()
+        except OSError as exc:
+            self.abort()
+            raise OutputError(f"{self.dest}: cannot write ({exc.strerror}); free disk space or choose another --out") from None
         self._ctx.__exit__(None, None, None)
 
     def abort(self):
@@ -297,6 +394,29 @@ class StackWriter:
             self._tw.close()
         with contextlib.suppress(BaseException):
             self._ctx.__exit__(RuntimeError, RuntimeError("aborted"), None)
+
+
+_SYNC_FILE_RANGE = []
+
+
+def _start_writeback(fd):
+    """``sync_file_range(fd, 0, 0, SYNC_FILE_RANGE_WRITE)``: queue the file's dirty pages for
+    writing without waiting (Linux). Elsewhere, or if it fails, nothing happens: the final
+    fsync of ``atomic_path`` remains what makes the file durable."""
+    if not _SYNC_FILE_RANGE:
+        fn = None
+        if sys.platform.startswith("linux"):
+            with contextlib.suppress(Exception):
+                import ctypes
+                libc = ctypes.CDLL(None, use_errno=True)
+                fn = libc.sync_file_range
+                fn.argtypes = [ctypes.c_int, ctypes.c_longlong, ctypes.c_longlong, ctypes.c_uint]
+                fn.restype = ctypes.c_int
+        _SYNC_FILE_RANGE.append(fn)
+    fn = _SYNC_FILE_RANGE[0]
+    if fn is not None:
+        with contextlib.suppress(Exception):
+            fn(fd, 0, 0, 2)   # SYNC_FILE_RANGE_WRITE
 
 
 def _needs_bigtiff(shape, dtype):

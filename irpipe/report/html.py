@@ -42,8 +42,10 @@ dl.meta dd { margin: 0; }
 table { border-collapse: collapse; width: 100%; margin: 6px 0 10px; font-size: 11.5px; }
 th, td { border-bottom: 1px solid var(--rule); padding: 3px 6px; text-align: left; vertical-align: top; }
 th { background: var(--soft); font-weight: 600; border-top: 1px solid var(--rule); }
-td.n, th.n { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
-td.loc { white-space: nowrap; font-variant-numeric: tabular-nums; }
+td.n, th.n { text-align: right; font-variant-numeric: tabular-nums; }
+td.n, td.loc { white-space: nowrap; }
+td.wide { min-width: 18em; }
+td.loc { font-variant-numeric: tabular-nums; }
 table.kv { width: auto; min-width: 48%; }
 table.kv th { width: 1%; white-space: nowrap; background: none; border-top: none; color: var(--muted);
               font-weight: normal; }
@@ -139,9 +141,9 @@ def _kv(rows):
     return f'<table class="kv"><tbody>{body}</tbody></table>'
 
 
-def _table(head, rows, numeric=(), nowrap=(), cls=""):
+def _table(head, rows, numeric=(), nowrap=(), wide=(), cls=""):
     def attr(i):
-        c = " ".join(n for n, on in (("n", i in numeric), ("loc", i in nowrap)) if on)
+        c = " ".join(n for n, on in (("n", i in numeric), ("loc", i in nowrap), ("wide", i in wide)) if on)
         return f' class="{c}"' if c else ""
 
     th = "".join(f"<th{attr(i)}>{h}</th>" for i, h in enumerate(head))
@@ -325,7 +327,8 @@ def _region_tables(st):
         load = el.get("load_pct")
         out += ["<h3>Electrical components</h3>",
                 _table(["Component", "Compared with", "Max [°C]", "Rise over comparison [K]",
-                        "Rise over ambient [K]", "At rated load [K]", "Grade", "Action"], rows, numeric=(2, 3, 4, 5)),
+                        "Rise over ambient [K]", "At rated load [K]", "Grade", "Action"], rows, numeric=(2, 3, 4, 5),
+                       wide=(7,)),
                 '<p class="note">'
                 + (f"Load during the survey: {_f(load, 0)} % of rating; rises scaled to rated load by the "
                    "square of the current ratio. " if load is not None else "Load during the survey not given. ")
@@ -383,7 +386,8 @@ def _stack_section(k, st, picture, findings, fig_no):
     out.append("<h3>Findings</h3>")
     if mine:
         out.append(_table(["No.", "Finding", "Location", "Peak / lowest", "Difference", "Mean", "Area [px]",
-                           "Assessment"], _finding_rows(mine, False), numeric=(0, 3, 4, 5, 6), nowrap=(2,)))
+                           "Assessment"], _finding_rows(mine, False), numeric=(0, 3, 4, 5, 6), nowrap=(2,),
+                          wide=(7,)))
     else:
         out.append('<p class="note">No findings for this stack.</p>')
     out.append("</section>")
