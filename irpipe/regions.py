@@ -153,3 +153,63 @@ class RegionAccumulator:
 def _f(x):
     x = float(x)
     return x if np.isfinite(x) else None
+
+
+def local_linear_smooth(image, mask, radius=2):
+    """Local linear (plane) regression of ``image`` over the valid pixels of ``mask``,
+    evaluated at each pixel: noise is averaged out while a linear gradient is kept
+    exactly, also at the region's edges and corners (where a plain moving mean would be
+    biased toward the interior).
+
+    Parameters
+    ----------
+    image : ndarray of shape (M, N)
+    mask : ndarray of bool, shape (M, N)
+        Pixels that may be used (region and finite).
+    radius : int
+        Half-width of the square window [px].
+
+    Returns
+    -------
+    ndarray of shape (M, N); NaN outside ``mask``.
+
+    Notes
+    -----
+    Per pixel p, least squares T(q) ~ a + b dr + c dc over q in the window with
+    (dr, dc) = q - p; the result is a. The normal-equation sums are convolutions
+    (a two-dimensional Savitzky-Golay filter of order 1 on a masked domain: A. Savitzky,
+    M. J. E. Golay, Anal. Chem. 36, 1627 (1964), doi:10.1021/ac60214a047).
+    """
+    from scipy import ndimage
+
+    m = np.asarray(mask, bool) & np.isfinite(image)
+    w = m.astype(np.float64)
+    z = np.where(m, image, 0.0).astype(np.float64)
+    k = np.arange(-radius, radius + 1, dtype=np.float64)
+    dr = np.repeat(k[:, None], k.size, 1)
+    dc = dr.T
+    ones = np.ones_like(dr)
+
+    def conv(a, kern):
+        # correlation: sum over q of a(q) * kern(q - p)
+        return ndimage.correlate(a, kern, mode="constant")
+
+    s0, sr, sc = conv(w, ones), conv(w, dr), conv(w, dc)
+    srr, scc, src = conv(w, dr * dr), conv(w, dc * dc), conv(w, dr * dc)
+    st, srt, sct = conv(z, ones), conv(z, dr), conv(z, dc)
+    a = np.stack([np.stack([s0, sr, sc], -1), np.stack([sr, srr, src], -1), np.stack([sc, src, scc], -1)], -2)
+    b = np.stack([st, srt, sct], -1)
+    out = np.full(image.shape, np.nan)
+    sel = m & (s0 >= 3)
+    det = np.linalg.det(a[sel])
+    good = np.abs(det) > 1e-9
+    sol = np.full((sel.sum(), 3), np.nan)
+    sol[good] = np.linalg.solve(a[sel][good], b[sel][good][..., None])[..., 0]
+    vals = sol[:, 0]
+    # where the plane is undetermined (collinear neighbours), use the window mean
+    mean = (st / np.maximum(s0, 1))[sel]
+    vals = np.where(good, vals, mean)
+    out[sel] = vals
+    few = m & (s0 < 3)
+    out[few] = image[few]
+    return out

@@ -150,6 +150,38 @@ class ModelCache:
         return self(*a) is self(*b)
 
 
+def path_variant(base, transmittance):
+    """The measurement model of ``base`` with another path transmittance, built cheaply.
+
+    Parameters
+    ----------
+    base : irpipe.correction.MeasurementModel
+        Model of the nominal path.
+    transmittance : float or ndarray of shape (K,)
+        Flat or spectral transmittance of the perturbed path.
+
+    Returns
+    -------
+    MeasurementModel
+        Same camera, temperature range and camera signal table as ``base`` (the camera
+        does not change with the path); only the path table G(T) = S(T) tau_eff(T) is
+        rebuilt. For a band-radiance camera G(T) = int R tau L_T dl is one band integral.
+    """
+    from .correction import MeasurementModel
+    from .radiometry import MonotoneTable
+
+    m = MeasurementModel.__new__(MeasurementModel)
+    tau = np.asarray(transmittance, dtype=float)
+    m.camera, m.flat, m.tau, m.t_range = base.camera, tau.ndim == 0, tau, base.t_range
+    m.signal_table = base.signal_table
+    if base.camera.kind == "band" and not m.flat:
+        func = lambda t: base.camera.response.band_radiance(t, tau)      # noqa: E731
+    else:
+        func = m.path_signal
+    m.path_table = MonotoneTable(func, *m.t_range)
+    return m
+
+
 def _as_cache(model_factory):
     return model_factory if isinstance(model_factory, ModelCache) else ModelCache(model_factory)
 

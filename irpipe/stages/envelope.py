@@ -3,15 +3,17 @@ mould risk (surface RH >= 80 %, ISO 13788) and condensation risk (surface at or 
 indoor dew point), from the survey's indoor and outdoor air.
 
 The minimum surface temperature of a region is read robustly: the lowest value of the
-frame-averaged image after a 3x3 mean over valid pixels of the region, so detector noise
-(NETD) does not bias the factor low. Reading the minimum over a small area rather than a
-single pixel is common practice (no source)."""
+frame-averaged image after a local linear (plane) fit over 5x5 valid pixels of the region
+(``irpipe.regions.local_linear_smooth``), so detector noise (NETD) does not bias the factor
+low, while the steep gradient into a cold corner is kept (a plain moving mean would read
+the corner warm). Reading the minimum over a small area rather than a single pixel is
+common practice (no source)."""
 from __future__ import annotations
 
 import numpy as np
-from scipy import ndimage
 
 from .. import findings
+from ..regions import local_linear_smooth
 from . import Stage
 
 USE_KEYS = {"dwelling": "dwelling", "residential": "dwelling", "school": "school", "office": "office",
@@ -55,10 +57,11 @@ class EnvelopeStage(Stage):
             ok = m & np.isfinite(mean)
             if not ok.any():
                 continue
-            k = np.ones((3, 3))
-            num = ndimage.convolve(np.where(ok, mean, 0.0), k, mode="constant")
-            den = ndimage.convolve(ok.astype(float), k, mode="constant")
-            smooth = np.where(ok, num / np.maximum(den, 1), np.nan)
+            # crop to the region's bounding box (plus the window) to keep the filter cheap
+            rr, cc = np.nonzero(ok)
+            r0, r1 = max(rr.min() - 2, 0), rr.max() + 3
+            c0, c1 = max(cc.min() - 2, 0), cc.max() + 3
+            smooth = local_linear_smooth(mean[r0:r1, c0:c1], ok[r0:r1, c0:c1], radius=2)
             tmin = float(np.nanmin(smooth))
             crit = cfg.get("critical_temperature_factor", crit_default)
             a = findings.envelope_assessment(tmin, ti, te, rh, critical_factor=crit)

@@ -110,9 +110,61 @@ class RadiometricStage(Stage):
         else:
             self.offsets = None
         self.hist = np.zeros(self.lut.size, np.int64)
+        # the full-range index (label * nv + raw - base) of every pixel is only made when a
+        # later stage reads it (chunk.extras["lookup_index"], the uncertainty stage);
+        # otherwise each chunk works in a window of raw values around its own range
+        from . import registry
+        self.export_index = any(getattr(c, "name", "") == "uncertainty" and c.applies(ctx) for c in registry())
+        self.index = None if eps.value is not None else eps.index
+        self.hist2d = self.hist.reshape(len(eps_values), nv)
+        self.window = None
+        # the picture stage folds this (label, raw value) histogram through the table
+        ctx.shared["lookup_histogram"] = {"counts": self.hist2d, "values_c": self.lut}
+
+    def _set_window(self, lo, hi):
+        """Tables restricted to raw values [w0, w1] around [lo, hi] (with a margin, so that
+        the next chunks usually fit too)."""
+        info_lo, info_hi = self.base, self.base + self.nv - 1
+        w0, w1 = max(info_lo, lo - 1024), min(info_hi, hi + 1024)
+        span = w1 - w0 + 1
+        a, b = w0 - self.base, w1 - self.base + 1
+        self.wlut = np.ascontiguousarray(self.lut[:, a:b]).ravel()
+        self.wbad = self.reason_lut[:, a:b] != VALID
+        if self.index is None:
+            self.woff = np.intp(-w0)
+        else:
+            self.woff = self.index.astype(np.intp) * np.intp(span) - np.intp(w0)
+        self.window = (w0, w1, a, span)
+        return self.window
+
+    def _lookup(self, raw, chunk):
+        """Temperature of each pixel by one gather per pixel from the windowed table, and
+        the (label, raw value) histogram by one bincount per frame (identical values to a
+        gather from the full table)."""
+        lo, hi = int(raw.min()), int(raw.max())
+        w = self.window
+        if w is None or lo < w[0] or hi > w[1]:
+            w = self._set_window(lo, hi)
+        _, _, a, span = w
+        nl = self.hist2d.shape[0]
+        out = np.empty(raw.shape, np.float32)
+        idx = np.empty(raw.shape[1:], np.intp)
+        hist = np.zeros(nl * span, np.int64)
+        flat = idx.reshape(-1)
+        for k in range(raw.shape[0]):
+            np.add(raw[k], self.woff, out=idx)
+            np.take(self.wlut, idx, out=out[k], mode="clip")
+            hist += np.bincount(flat, minlength=hist.size)
+        h = hist.reshape(nl, span)
+        self.hist2d[:, a:a + span] += h
+        chunk.extras["invalid_count"] = int(h[self.wbad].sum())
+        return out
 
     def process(self, chunk, ctx):
         raw = chunk.raw
+        if self.lookup and not self.export_index:
+            chunk.temperature_c = self._lookup(raw, chunk)
+            return
         if self.lookup:
             if self.offsets is None:
                 idx = raw.astype(np.int32) - np.int32(self.base) if self.base else raw
@@ -120,7 +172,9 @@ class RadiometricStage(Stage):
                 idx = np.add(raw, self.offsets, dtype=np.int32)
             chunk.temperature_c = self.lut_flat.take(idx)
             chunk.extras["lookup_index"] = idx
-            self.hist += np.bincount(idx.ravel(), minlength=self.hist.size)
+            counts = np.bincount(idx.ravel(), minlength=self.hist.size)
+            self.hist += counts
+            chunk.extras["invalid_count"] = int(counts[self.reason_lut.ravel() != VALID].sum())
             return
         s, reason = self.signal(raw)
         chunk.extras["signal"] = s
@@ -137,6 +191,7 @@ class RadiometricStage(Stage):
         counts = np.bincount(reason.ravel(), minlength=len(REASONS) + 1)
         for code, label in REASONS.items():
             ctx.invalid[label] += int(counts[code])
+        chunk.extras["invalid_count"] = int(counts[1:].sum())
         chunk.temperature_c = t
 
     def _reflector_temperature(self, s, reason, ctx):

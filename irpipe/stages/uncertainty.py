@@ -40,7 +40,7 @@ from .. import __version__
 from ..constants import ZERO_CELSIUS
 from ..emissivity import METAL_EMISSIVITY
 from ..io import StackWriter
-from ..uncertainty import COVERAGE_FACTOR, InputUncertainties, ModelCache, gum_uncertainty
+from ..uncertainty import COVERAGE_FACTOR, InputUncertainties, ModelCache, gum_uncertainty, path_variant
 from . import Stage
 
 CONFIG_KEYS = {"emissivity": "emissivity", "reflected_temperature": "reflected_temperature_k",
@@ -57,7 +57,6 @@ def model_factory(ctx):
     a perturbation that leaves the transmittance unchanged (forced flat transmittance,
     distance 0) returns the stack's own model.
     """
-    from ..correction import MeasurementModel
     from ..errors import ConfigError
     from ..pipeline import path_transmittance
 
@@ -72,7 +71,7 @@ def model_factory(ctx):
         if t.shape == base.tau.shape and np.array_equal(t, base.tau):
             return base
         try:
-            return MeasurementModel(ctx.camera, tau, base.t_range)
+            return path_variant(base, tau)
         except ValueError as exc:
             raise ConfigError(f"{where}: {exc}") from None
 
