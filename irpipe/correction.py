@@ -28,7 +28,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .calibration import sakuma_hattori_signal, sakuma_hattori_temperature
-from .radiometry import MonotoneTable, SpectralResponse
+from .radiometry import MonotoneTable, SpectralResponse, node_temperatures
 
 # reason codes for invalid pixels (uint8), shared by stages and reports
 VALID, SATURATED, OUT_OF_RANGE, NON_PHYSICAL, INVALID_INPUT = 0, 1, 2, 3, 4
@@ -87,16 +87,26 @@ class MeasurementModel:
         self.flat = tau.ndim == 0
         self.tau = tau
         self.t_range = (float(t_range[0]), float(t_range[1]))
-        self.signal_table = MonotoneTable(camera.signal, *self.t_range)
-        self.path_table = MonotoneTable(self.path_signal, *self.t_range)
+        # one Planck evaluation on the table nodes serves both tables
+        t_nodes = node_temperatures(*self.t_range)
+        r = camera.response
+        if self.flat:
+            s_nodes = camera.signal(t_nodes)
+            g_nodes = s_nodes * float(self.tau)
+        else:
+            l_plain, l_tau = r.band_radiances(t_nodes, [None, self.tau])
+            s_nodes = l_plain if camera.kind == "band" else camera.signal(t_nodes)
+            g_nodes = s_nodes * (l_tau / l_plain)
+        self.signal_table = MonotoneTable(camera.signal, *self.t_range, samples=s_nodes)
+        self.path_table = MonotoneTable(self.path_signal, *self.t_range, samples=g_nodes)
 
     def effective_transmittance(self, temperature):
         """tau_eff(T): band transmittance weighted by a blackbody at T [fraction]."""
         t = np.asarray(temperature, dtype=float)
         if self.flat:
             return np.broadcast_to(self.tau, t.shape).astype(float)
-        r = self.camera.response
-        return r.band_radiance(t, self.tau) / r.band_radiance(t)
+        l_plain, l_tau = self.camera.response.band_radiances(t, [None, self.tau])
+        return l_tau / l_plain
 
     def path_signal(self, temperature):
         """G(T) = S(T) tau_eff(T): signal of a blackbody at T after the path."""

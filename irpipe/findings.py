@@ -390,6 +390,34 @@ def _update_one(best, best_frame, chunk, finite, first_frame, sign):
     best_frame[better] = first_frame + idx[better]
 
 
+def _update_one_finite(best, best_frame, chunk, value, first_frame, sign):
+    """As _update_one for a chunk without NaN or inf, given ``value``, its per-pixel
+    extreme: the earliest frame reaching it is searched only where it beats ``best``."""
+    with np.errstate(invalid="ignore"):
+        better = (value > best) if sign > 0 else (value < best)
+    better |= np.isnan(best)
+    where = np.flatnonzero(better)
+    if where.size == 0:
+        return
+    f = chunk.shape[0]
+    flat = chunk.reshape(f, -1)
+    v = value.reshape(-1)
+    if where.size * 8 < v.size:
+        # few pixels: gather them and take the first frame equal to the extreme
+        sub = np.take(flat, where, axis=1)
+        k = (sub == v[where]).argmax(axis=0)
+    else:
+        # many pixels (first chunks): walk the frames backwards so the earliest wins
+        kk = np.zeros(v.shape, np.int16 if f < 32768 else np.int64)
+        eq = np.empty(v.shape, bool)
+        for j in range(f - 1, -1, -1):
+            np.equal(flat[j], v, out=eq)
+            np.copyto(kk, j, where=eq)
+        k = kk[where]
+    best.reshape(-1)[where] = v[where]
+    best_frame.reshape(-1)[where] = first_frame + k
+
+
 def update_extremes(state, chunk_c, first_frame):
     """Fold a chunk of frames into the running per-pixel maximum and minimum.
 
@@ -411,9 +439,14 @@ def update_extremes(state, chunk_c, first_frame):
     -----
     Per pixel, max_c = max over valid frames of chunk_c, with max_frame its
     earliest frame index; likewise for the minimum. Vectorised over pixels;
-    folding chunks in any split gives the same result as one pass.
+    folding chunks in any split gives the same result as one pass. Float32 chunks
+    are compared in float32 (the state keeps float64, which holds them exactly); a
+    chunk without invalid samples takes a fast path (per-pixel max/min over the
+    frames, then the frame index only where the running extreme changes).
     """
-    chunk = np.asarray(chunk_c, dtype=float)
+    chunk = np.asarray(chunk_c)
+    if chunk.dtype not in (np.float32, np.float64):
+        chunk = chunk.astype(float)
     if chunk.ndim == 2:
         chunk = chunk[None]
     if chunk.ndim != 3:
@@ -426,6 +459,13 @@ def update_extremes(state, chunk_c, first_frame):
     if int(first_frame) < 0:
         raise ValueError(f"first_frame: {first_frame} is negative")
     if chunk.shape[0] == 0:
+        return state
+    hi = chunk.max(axis=0)          # NaN or inf anywhere shows in hi or lo
+    lo = chunk.min(axis=0)
+    if np.isfinite(hi).all() and np.isfinite(lo).all():
+        _update_one_finite(state.max_c, state.max_frame, chunk, hi, int(first_frame), +1)
+        _update_one_finite(state.min_c, state.min_frame, chunk, lo, int(first_frame), -1)
+        state.n_valid += chunk.shape[0]
         return state
     finite = np.isfinite(chunk)
     _update_one(state.max_c, state.max_frame, chunk, finite, int(first_frame), +1)

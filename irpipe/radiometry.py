@@ -126,6 +126,22 @@ class SpectralResponse:
         """(lo, hi) wavelength limits of the response [m]."""
         return float(self.wavelength[0]), float(self.wavelength[-1])
 
+    def band_radiances(self, temperature, transmittances):
+        """Band radiance for several weightings at once, sharing the Planck evaluations.
+
+        Returns an array of shape (len(transmittances),) + temperature.shape; ``None`` in
+        ``transmittances`` stands for no path.
+        """
+        t = np.asarray(temperature, dtype=float)
+        ws = np.stack([self.weights if tr is None else self.weights * np.asarray(tr, float)
+                       for tr in transmittances], axis=1)              # (K, J)
+        flat = t.reshape(-1)
+        out = np.empty((flat.size, ws.shape[1]))
+        blk = max(1, 2_000_000 // self.wavelength.size)
+        for s in range(0, flat.size, blk):
+            out[s:s + blk] = planck_radiance(self.wavelength[None, :], flat[s:s + blk, None]) @ ws
+        return np.moveaxis(out, 1, 0).reshape((ws.shape[1],) + t.shape)
+
     def band_radiance(self, temperature, transmittance=None):
         """Band radiance seen through this response [W m-2 sr-1].
 
@@ -161,6 +177,11 @@ def _trapezoid_weights(x):
     return w
 
 
+def node_temperatures(t_min, t_max, n=4096):
+    """The dense sampling grid of MonotoneTable: 4n nodes uniform in 1/T, increasing T [K]."""
+    return 1.0 / np.linspace(1.0 / float(t_max), 1.0 / float(t_min), 4 * n)[::-1]
+
+
 class MonotoneTable:
     """Fast forward and inverse evaluation of a strictly increasing signal S(T) > 0.
 
@@ -179,19 +200,18 @@ class MonotoneTable:
         Number of nodes.
     """
 
-    def __init__(self, func, t_min, t_max, n=4096):
+    def __init__(self, func, t_min, t_max, n=4096, samples=None):
         self.func = func
         self.t_min, self.t_max = float(t_min), float(t_max)
-        x_nodes = np.linspace(1.0 / self.t_max, 1.0 / self.t_min, 4 * n)[::-1]  # 1/T increasing T
-        t_nodes = 1.0 / x_nodes
-        s = np.asarray(func(t_nodes), dtype=float)
+        t_nodes = node_temperatures(self.t_min, self.t_max, n)
+        s = np.asarray(func(t_nodes) if samples is None else samples, dtype=float)
         if np.any(~np.isfinite(s)) or np.any(s <= 0) or np.any(np.diff(s) <= 0):
             raise ValueError("signal model is not positive and strictly increasing over "
                              f"{self.t_min - 273.15:.1f} .. {self.t_max - 273.15:.1f} C")
         y_nodes = np.log(s)
         self._t_nodes, self._y_nodes = t_nodes, y_nodes
         # inverse: x = 1/T as a smooth function of y, sampled on a uniform y grid
-        spline = CubicSpline(y_nodes, x_nodes)
+        spline = CubicSpline(y_nodes, 1.0 / t_nodes)
         self.y0, self.y1 = float(y_nodes[0]), float(y_nodes[-1])
         self.n = n
         self.dy = (self.y1 - self.y0) / (n - 1)

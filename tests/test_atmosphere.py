@@ -55,7 +55,7 @@ def test_spectral_transmittance_matches_direct_lowtran7():
     rows = _rows("lowtran7_spectral_check.csv")
     keys = sorted({(r["air_temperature_c"], r["relative_humidity_pct"], r["pressure_kpa"], r["distance_m"])
                    for r in rows})
-    assert len(keys) == 3
+    assert len(keys) == 6
     for key in keys:
         sel = [r for r in rows if (r["air_temperature_c"], r["relative_humidity_pct"],
                                    r["pressure_kpa"], r["distance_m"]) == key]

@@ -200,6 +200,12 @@ class RadiometricStage(Stage):
         The reflector (emissivity ~0) returns the irradiance it receives: its signal,
         after removing the path emission, equals G(T_refl). Averaging is done in signal
         units, because reflected radiance, not temperature, is what adds up.
+
+        With ``reflector_emissivity`` eps_r > 0 in the config, the reflector's own
+        emission is removed: G(T_refl) = [S - path - eps_r G(T_r)] / (1 - eps_r), taking
+        the reflector at the air temperature T_r = T_air (an assumption: a thin foil
+        follows the air and its backing; an error of 5 K in T_r moves T_refl by about
+        eps_r * 5 K).
         """
         m = self.reflector
         f = s.shape[0]
@@ -209,6 +215,13 @@ class RadiometricStage(Stage):
             mean_s = np.where(ok, vals, 0).sum(1) / np.maximum(ok.sum(1), 1)
         _, path = self.model.background(1.0, 300.0, self.air_k)
         g = mean_s - path
+        eps_r = (ctx.conditions.get("reflected_temperature_c") or {}).get("reflector_emissivity") or 0.0
+        if eps_r >= 0.5:
+            ctx.cfg.fail(["stacks", ctx.index, "conditions", "reflected_temperature_c", "reflector_emissivity"],
+                         f"a reflector of emissivity {eps_r:g} is not a reflector; the reflector method needs a "
+                         "diffuse reflector of emissivity near 0 (crumpled-and-flattened aluminium foil, ~0.03)")
+        if eps_r > 0:
+            g = (g - eps_r * float(self.model.path_signal(self.air_k))) / (1.0 - eps_r)
         tr = self.model.path_table.inverse(g)
         tr = np.where(ok.sum(1) > 0, tr, np.nan)
         if np.any(~np.isfinite(tr)):
