@@ -98,6 +98,11 @@ class Ctx:
     def __init__(self, filename, marks, base_dir):
         self.filename, self.marks, self.base_dir = filename, marks, Path(base_dir)
 
+    def where(self, path):
+        """'file line L column C, dotted.key' for a key path."""
+        line, col = self.marks.at(path)
+        return f"{self.filename} line {line} column {col}, {dotted_key(path) or '(top level)'}"
+
     def fail(self, path, msg):
         line, col = self.marks.at(path)
         key = dotted_key(path) or "(top level)"

@@ -119,6 +119,34 @@ def _fail(cfg, keypath, msg):
     cfg.fail(keypath, msg)
 
 
+class _where:
+    """Add the config location to an input-data error raised inside the block."""
+
+    def __init__(self, cfg, keypath):
+        self.cfg, self.keypath = cfg, keypath
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, typ, exc, tb):
+        if exc is not None and isinstance(exc, InputDataError) and not getattr(exc, "_located", False):
+            new = type(exc)(f"{exc} [given at {self.cfg.ctx.where(self.keypath)}]")
+            new._located = True
+            raise new from None
+        return False
+
+
+def _cond_key(cfg, i, name):
+    """Key path of a condition: the stack's own if it sets it, else the survey-wide one."""
+    own = cfg.data["stacks"][i].get("conditions", {})
+    return ["stacks", i, "conditions", name] if name in own else ["conditions", name]
+
+
+def _cam_key(cfg, i, name):
+    own = cfg.data["stacks"][i].get("camera", {})
+    return ["stacks", i, "camera", name] if own.get(name) is not None else ["camera", name]
+
+
 def prepare_stack(cfg: Config, i: int, out_dir: Path, cameras: dict, materials, options):
     """Open a stack, read its maps and masks, resolve conditions; no output written."""
     st = cfg.data["stacks"][i]
@@ -128,7 +156,8 @@ def prepare_stack(cfg: Config, i: int, out_dir: Path, cameras: dict, materials, 
     if ckey not in cameras:
         cameras[ckey] = camera_model(cfg, cam)
     camera, cal = cameras[ckey]
-    reader = StackReader(st["path"], f"stack '{st['name']}'")
+    with _where(cfg, ["stacks", i, "path"]):
+        reader = StackReader(st["path"], f"stack '{st['name']}'")
     shape, dtype = reader.shape, reader.dtype
     if cam["input"] == "counts" and not np.issubdtype(dtype, np.integer):
         reader.close()
@@ -154,14 +183,17 @@ def prepare_stack(cfg: Config, i: int, out_dir: Path, cameras: dict, materials, 
 def _prepare_maps(ctx, cfg, key, cam):
     rows_cols = ctx.shape[1:]
     if "gain_map" in cam:
-        g = read_map(cam["gain_map"], rows_cols, "camera.gain_map").astype(np.float64)
-        o = read_map(cam["offset_map"], rows_cols, "camera.offset_map").astype(np.float64)
+        with _where(cfg, _cam_key(cfg, ctx.index, "gain_map")):
+            g = read_map(cam["gain_map"], rows_cols, "camera.gain_map").astype(np.float64)
+        with _where(cfg, _cam_key(cfg, ctx.index, "offset_map")):
+            o = read_map(cam["offset_map"], rows_cols, "camera.offset_map").astype(np.float64)
         if not (np.all(np.isfinite(g)) and np.all(np.isfinite(o))):
             raise InputDataError(f"{cam['gain_map']}: gain/offset maps contain NaN or infinite values; "
                                  "recompute them with 'irpipe calibrate'")
         ctx.shared["nuc"] = (g, o)
     if "bad_pixel_mask" in cam:
-        m = read_map(cam["bad_pixel_mask"], rows_cols, "camera.bad_pixel_mask") != 0
+        with _where(cfg, _cam_key(cfg, ctx.index, "bad_pixel_mask")):
+            m = read_map(cam["bad_pixel_mask"], rows_cols, "camera.bad_pixel_mask") != 0
         if m.all():
             raise InputDataError(f"{cam['bad_pixel_mask']}: bad-pixel mask flags every pixel; "
                                  "it should be non-zero only at bad pixels")
@@ -174,7 +206,8 @@ def _prepare_regions(ctx, cfg, key, st):
         prob = None if "mask" in r else geometry_problem(rows_cols, r)
         if prob:
             _fail(cfg, key + ["regions", j], prob)
-        img = read_map(r["mask"], rows_cols, f"region '{r['name']}' mask") if "mask" in r else None
+        with _where(cfg, key + ["regions", j, "mask"]):
+            img = read_map(r["mask"], rows_cols, f"region '{r['name']}' mask") if "mask" in r else None
         m = region_mask(rows_cols, r, img)
         if not m.any():
             _fail(cfg, key + ["regions", j], f"region '{r['name']}' covers no pixel")
@@ -184,7 +217,9 @@ def _prepare_regions(ctx, cfg, key, st):
 
 def _prepare_conditions(ctx, cfg, key, cond):
     ckey = key + ["conditions"]
-    ctx.emissivity = resolve_emissivity(cfg, ckey, cond["emissivity"], ctx.shape[1:], ctx.materials)
+    ekey = _cond_key(cfg, ctx.index, "emissivity")
+    with _where(cfg, ekey):
+        ctx.emissivity = resolve_emissivity(cfg, ekey[:-1], cond["emissivity"], ctx.shape[1:], ctx.materials)
     # oblique views: stack-wide angle, replaced by a region's own angle for its pixels;
     # metals (emissivity < 0.5) are left as they are (irpipe.emissivity.apply_view_angles)
     region_angles = [(n, ctx.masks[n], r["view_angle_deg"]) for n, r in ctx.region_cfg.items()

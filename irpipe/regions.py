@@ -71,6 +71,12 @@ class RegionAccumulator:
 
     Holds O(frames) per-frame summaries and a fixed-size histogram, never the data.
     Percentiles come from the 0.01 K histogram (resolution 0.01 K).
+
+    A float chunk whose region values are all finite (the usual case) takes a fast path:
+    a rectangle is read as a view, any other shape by one gather; per-frame min/max/sum
+    are reductions in the chunk's own precision (sums accumulated in float64), the
+    moments use a float32-representable shift, and the histogram bins are computed in
+    float32. Chunks with invalid values take the general float64 path.
     """
 
     def __init__(self, name, mask):
@@ -89,15 +95,79 @@ class RegionAccumulator:
         self.frames = []
         self.nbins = int(round((_HIST_HI_C - _HIST_LO_C) / _HIST_STEP))
         self.hist = np.zeros(self.nbins, np.int64)
+        self._box = None
+        if self.pixels and self.mask.ndim == 2:
+            rows = np.flatnonzero(self.mask.any(axis=1))
+            cols = np.flatnonzero(self.mask.any(axis=0))
+            r0, r1, c0, c1 = int(rows[0]), int(rows[-1]) + 1, int(cols[0]), int(cols[-1]) + 1
+            if self.mask[r0:r1, c0:c1].all():
+                self._box = (r0, r1, c0, c1)
 
     def update(self, chunk_c, first_frame):
         """Add frames ``chunk_c`` (F, M, N) [C] starting at frame index ``first_frame``."""
+        chunk = np.asarray(chunk_c)
+        if self.pixels == 0 or chunk.ndim != 3 or chunk.dtype not in (np.float32, np.float64):
+            return self._update_general(chunk, first_frame)
+        f = chunk.shape[0]
+        if self._box is not None:
+            r0, r1, c0, c1 = self._box
+            v = chunk[:, r0:r1, c0:c1]
+            axes = (1, 2)
+        else:
+            v = np.take(chunk.reshape(f, -1), self.idx, axis=1)
+            axes = 1
+        fmin = v.min(axis=axes)
+        fmax = v.max(axis=axes)
+        if not (np.isfinite(fmin).all() and np.isfinite(fmax).all()):
+            return self._update_general(chunk, first_frame)
+        p = self.pixels
+        fsum = v.sum(axis=axes, dtype=np.float64)
+        if self.shift is None:
+            self.shift = float(v.dtype.type(fsum.sum() / (f * p)))
+        sh = self.shift
+        n = f * p
+        self.n += n
+        self.s1 += float(fsum.sum()) - n * sh
+        tmp = np.empty(v.shape, v.dtype)
+        np.subtract(v, v.dtype.type(sh), out=tmp)
+        np.square(tmp, out=tmp)
+        self.s2 += float(tmp.sum(dtype=np.float64))
+        fmean = fsum / p
+        for k in range(f):
+            self.frames.append({"frame": first_frame + k, "valid_pixels": p,
+                                "min_c": float(fmin[k]), "max_c": float(fmax[k]), "mean_c": float(fmean[k])})
+        k = int(np.argmin(fmin))
+        if fmin[k] < self.min:
+            self.min = float(fmin[k])
+            self.min_at = self._where_fast(first_frame + k, int(np.argmin(v[k])))
+        k = int(np.argmax(fmax))
+        if fmax[k] > self.max:
+            self.max = float(fmax[k])
+            self.max_at = self._where_fast(first_frame + k, int(np.argmax(v[k])))
+        # histogram bins: (v - lo) / step, truncated, clipped to the range
+        np.add(v, v.dtype.type(-_HIST_LO_C), out=tmp)
+        tmp *= v.dtype.type(1.0 / _HIST_STEP)
+        if fmin.min() < _HIST_LO_C or fmax.max() >= _HIST_HI_C:
+            np.clip(tmp, 0, self.nbins - 1, out=tmp)
+        counts = np.bincount(tmp.astype(np.intp).reshape(-1))
+        self.hist[:counts.size] += counts
+
+    def _where_fast(self, frame, p):
+        """Location of the ``p``-th value (raster order) of the region view or gather."""
+        if self._box is not None:
+            r0, _, c0, c1 = self._box
+            w = c1 - c0
+            return {"frame": int(frame), "row": int(r0 + p // w), "col": int(c0 + p % w)}
+        return self._where(frame, p)
+
+    def _update_general(self, chunk_c, first_frame):
         f = chunk_c.shape[0]
         v = chunk_c.reshape(f, -1)[:, self.idx].astype(np.float64)   # (F, P)
         ok = np.isfinite(v)
         cnt = ok.sum(axis=1)
         if self.shift is None and cnt.sum():
-            self.shift = float(np.nanmean(v))
+            # a float32 number, so that the fast path can subtract it exactly
+            self.shift = float(np.float32(np.nanmean(np.where(ok, v, np.nan))))
         sh = self.shift or 0.0
         d = np.where(ok, v - sh, 0.0)
         self.s1 += float(d.sum())

@@ -159,9 +159,10 @@ def region_rows(report):
     """One dict per stack x region with the keys of ``REGION_COLUMNS``."""
     rows = []
     for st in done_stacks(report):
+        comps = {c.get("region"): c for c in (st.get("electrical") or {}).get("components", []) or []}
         for r in st.get("regions", []) or []:
             mn, mx = r.get("min_at") or {}, r.get("max_at") or {}
-            el = r.get("electrical") or {}
+            el = r.get("electrical") or comps.get(r["name"]) or {}
             rows.append({
                 "stack": st["name"], "region": r["name"], "pixels": r.get("pixels"),
                 "valid_values": r.get("valid_values"),
