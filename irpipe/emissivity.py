@@ -113,12 +113,21 @@ class EmissivityField:
         fac = f[zz]
         if metal_below is not None:
             fac = np.where(base_values[mat] < metal_below, 1.0, fac)
-        index = inv.reshape(shape).astype(np.int32)
+        index = inv.reshape(shape).astype(np.int64)
         fpix = fac[index]
-        if present.size == 1 and self.value is not None:
-            return EmissivityField(value=float(base_values[0] * fac[0]), description=self.description,
+        # merge labels that ended up equal (e.g. a metal inside and outside an angled
+        # region), keeping labels apart whose uncertainties differ
+        vals = base_values[mat] * fac
+        first = np.unique(index.ravel(), return_index=True)[1]
+        u_lab = (u * fpix).ravel()[first]
+        pairs, merged = np.unique(np.stack([vals, u_lab], 1), axis=0, return_inverse=True)
+        merged = np.asarray(merged).ravel()
+        index = merged[index].astype(np.int32)
+        mat_vals = pairs[:, 0]
+        if mat_vals.size == 1 and self.value is not None:
+            return EmissivityField(value=float(mat_vals[0]), description=self.description,
                                    uncertainty=u * fpix if np.any(u) else self.uncertainty)
-        return EmissivityField(index=index, values=base_values[mat] * fac, description=self.description,
+        return EmissivityField(index=index, values=mat_vals, description=self.description,
                                uncertainty=u * fpix)
 
 

@@ -326,7 +326,7 @@ def fit_calibration(temperatures, counts, response, model="linear", blackbody_em
             raise ValueError("the linear model needs at least 2 reference temperatures")
         l_src = _bb_source_signal(response.band_radiance, t, eps, ts)
         gain, offset = fit_linear(l_src, k)
-        params = {"model": "linear", "gain": gain, "offset_counts": offset}
+        params = {"model": "linear", "gain": float(gain), "offset_counts": float(offset)}
         t_fit = _invert_source((k - offset) / gain, response.band_radiance, eps, ts, t)
         return CalibrationFit(params, t, k, t_fit - t)
     if model != "sakuma-hattori":
@@ -334,32 +334,48 @@ def fit_calibration(temperatures, counts, response, model="linear", blackbody_em
     if t.size < 3:
         raise ValueError("the Sakuma-Hattori model needs at least 3 reference temperatures")
 
+    lam0 = 0.5 * sum(response.band)                 # start A at the band centre
+
     def fit(offset):
         s = k - offset
         if np.any(s <= 0):
             return None, np.inf
         s_bb = s.copy()
-        a0, b0 = 10e-6, 50e-6
-        for _ in range(8 if eps < 1 else 1):
-            a, b, c = fit_sakuma_hattori(t, s_bb, a0=a0, b0=b0)
-            a0, b0 = a, b
-            if eps < 1:
-                s_bb = (s - (1 - eps) * sakuma_hattori_signal(ts, a, b, c)) / eps
-        resid = _invert_source(s, lambda x: sakuma_hattori_signal(x, a, b, c), eps, ts, t,
-                               inverse=lambda y: sakuma_hattori_temperature(y, a, b, c)) - t
-        return (a, b, c), float(np.sqrt(np.mean(resid**2)))
+        a0, b0 = lam0, 50e-6
+        try:
+            with np.errstate(over="ignore", invalid="ignore"):
+                for _ in range(8 if eps < 1 else 1):
+                    a, b, c = fit_sakuma_hattori(t, s_bb, a0=a0, b0=b0)
+                    a0, b0 = a, b
+                    if eps < 1:
+                        s_bb = (s - (1 - eps) * sakuma_hattori_signal(ts, a, b, c)) / eps
+                resid = _invert_source(s, lambda x: sakuma_hattori_signal(x, a, b, c), eps, ts, t,
+                                       inverse=lambda y: sakuma_hattori_temperature(y, a, b, c)) - t
+        except (ValueError, FloatingPointError):
+            return None, np.inf
+        rms = float(np.sqrt(np.mean(resid**2)))
+        return ((a, b, c), rms) if np.isfinite(rms) and np.isfinite(c) else (None, np.inf)
 
     if offset_counts is None and t.size >= 4:
+        # start from the offset of a straight line in band radiance (S-H follows the band
+        # radiance closely), then refine it on the RMS residual in kelvin
         from scipy.optimize import minimize_scalar
+        _, off_lin = fit_linear(_bb_source_signal(response.band_radiance, t, eps, ts), k)
         span = float(k.max() - k.min())
-        lo_b, hi_b = float(k.min()) - 20.0 * span, float(k.min()) - 1e-6 * max(span, 1.0)
+        hi_b = min(float(k.min()) - 1e-6 * max(span, 1.0), off_lin + 0.25 * span)
+        lo_b = min(off_lin - 0.25 * span, hi_b - 0.5 * span)
         res = minimize_scalar(lambda o: fit(o)[1], bounds=(lo_b, hi_b), method="bounded",
-                              options={"xatol": 1e-6 * max(span, 1.0)})
+                              options={"xatol": 1e-9 * max(span, 1.0), "maxiter": 200})
         offset = float(res.x)
     else:
         offset = 0.0 if offset_counts is None else float(offset_counts)
-    (a, b, c), _ = fit(offset)
-    params = {"model": "sakuma-hattori", "A_um": a * 1e6, "B_umK": b * 1e6, "C": c, "offset_counts": offset}
+    p, _ = fit(offset)
+    if p is None:
+        raise ValueError("the Sakuma-Hattori fit failed; check the reference temperatures and counts "
+                         "(counts must rise with temperature)")
+    a, b, c = p
+    params = {"model": "sakuma-hattori", "A_um": float(a * 1e6), "B_umK": float(b * 1e6), "C": float(c),
+              "offset_counts": float(offset)}
     t_fit = _invert_source(k - offset, lambda x: sakuma_hattori_signal(x, a, b, c), eps, ts, t,
                            inverse=lambda y: sakuma_hattori_temperature(y, a, b, c))
     return CalibrationFit(params, t, k, t_fit - t)

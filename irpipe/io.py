@@ -284,6 +284,9 @@ def atomic_path(dest):
     fd, tmp = tempfile.mkstemp(prefix=f".{dest.name}.", suffix=".part", dir=dest.parent)
     os.close(fd)
     tmp = Path(tmp)
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(tmp, 0o666 & ~umask)          # mkstemp makes 0600; outputs are ordinary files
     try:
         yield tmp
         if tmp.is_file():

@@ -425,7 +425,7 @@ def run(config_path, out_dir=None, *, resume=False, keep_going=False, quiet=True
         results.append(rep)
     report = build_report(cfg, results)
     if write_report:
-        write_reports(out, report, contexts)
+        write_reports(out, report, contexts, pictures=cfg.data["output"].get("report", True))
     manifest["finished_utc"] = _now()
     _write_manifest(out, manifest, old_manifest)
     return RunResult(report, failed, skipped, out)
@@ -463,13 +463,11 @@ def run_stack(ctx: StackContext, progress=None) -> dict:
             s.start(ctx)
         size = int(ctx.options.get("frame_chunk") or 32)
         n = ctx.shape[0]
-        for first in range(0, n, size):
-            raw = reader.read(first, min(n, first + size))
-            chunk = Chunk(first, raw)
-            for s in chain:
-                s.process(chunk, ctx)
-            if progress:
-                progress(ctx.name, min(n, first + size), n)
+        # chunks read ahead in a thread and each stage in its own thread, in frame order
+        # (irpipe.parallel.stream_chain); results are those of the one-thread loop
+        from .parallel import stream_chain
+        chunks = (Chunk(first, reader.read(first, min(n, first + size))) for first in range(0, n, size))
+        stream_chain(chain, ctx, chunks, progress, threads=ctx.options.get("threads", True))
         for s in chain:
             s.finish(ctx)
     except BaseException:
@@ -538,5 +536,9 @@ def build_report(cfg: Config, stacks: list) -> dict:
             "warnings": warnings, "cautions": list(CAUTIONS), "stacks": stacks}
 
 
-def write_reports(out: Path, report: dict, contexts):
+def write_reports(out: Path, report: dict, contexts, pictures=True):
+    """report.json, then the tables and the HTML report (pictures drawn with matplotlib)."""
     write_json_atomic(out / "report.json", report)
+    if pictures:
+        from .report import pictures_from_contexts, write_all
+        write_all(out, report, pictures_from_contexts(contexts, report, out))

@@ -121,18 +121,19 @@ class RegionAccumulator:
         if not (np.isfinite(fmin).all() and np.isfinite(fmax).all()):
             return self._update_general(chunk, first_frame)
         p = self.pixels
-        fsum = v.sum(axis=axes, dtype=np.float64)
+        typ = v.dtype.type
         if self.shift is None:
-            self.shift = float(v.dtype.type(fsum.sum() / (f * p)))
+            self.shift = float(typ(v.sum(axis=axes, dtype=np.float64).sum() / (f * p)))
         sh = self.shift
-        n = f * p
-        self.n += n
-        self.s1 += float(fsum.sum()) - n * sh
-        tmp = np.empty(v.shape, v.dtype)
-        np.subtract(v, v.dtype.type(sh), out=tmp)
-        np.square(tmp, out=tmp)
-        self.s2 += float(tmp.sum(dtype=np.float64))
-        fmean = fsum / p
+        # d = v - shift (exact or nearly so: both in the chunk's precision and close)
+        d = np.empty(v.shape, v.dtype)
+        np.subtract(v, typ(sh), out=d)
+        d2 = d.reshape(f, -1)
+        dsum = d2.sum(axis=1, dtype=v.dtype).astype(np.float64)      # pairwise per frame
+        self.s1 += float(dsum.sum())
+        self.s2 += float(sum(np.vdot(d2[k], d2[k]) for k in range(f)))
+        self.n += f * p
+        fmean = dsum / p + sh
         for k in range(f):
             self.frames.append({"frame": first_frame + k, "valid_pixels": p,
                                 "min_c": float(fmin[k]), "max_c": float(fmax[k]), "mean_c": float(fmean[k])})
@@ -145,11 +146,11 @@ class RegionAccumulator:
             self.max = float(fmax[k])
             self.max_at = self._where_fast(first_frame + k, int(np.argmax(v[k])))
         # histogram bins: (v - lo) / step, truncated, clipped to the range
-        np.add(v, v.dtype.type(-_HIST_LO_C), out=tmp)
-        tmp *= v.dtype.type(1.0 / _HIST_STEP)
+        np.add(v, typ(-_HIST_LO_C), out=d)
+        d *= typ(1.0 / _HIST_STEP)
         if fmin.min() < _HIST_LO_C or fmax.max() >= _HIST_HI_C:
-            np.clip(tmp, 0, self.nbins - 1, out=tmp)
-        counts = np.bincount(tmp.astype(np.intp).reshape(-1))
+            np.clip(d, 0, self.nbins - 1, out=d)
+        counts = np.bincount(d.astype(np.intp).reshape(-1))
         self.hist[:counts.size] += counts
 
     def _where_fast(self, frame, p):

@@ -86,8 +86,11 @@ def thermogram(picture, stack_findings, title=None):
     cmap = matplotlib.colormaps[TEMPERATURE_CMAP].with_extremes(bad=INVALID_COLOUR)
     aspect = rows / cols
     plot_w = WIDTH_IN - 1.35
-    fig = _new_figure(WIDTH_IN, plot_w * aspect + 0.75)
-    ax = fig.add_axes([0.07, 0.08, plot_w / WIDTH_IN - 0.05, 1 - 0.08 - 0.35 / (plot_w * aspect + 0.75)])
+    top = 0.35 if title else 0.15                 # [in] above the image
+    fig_h = plot_w * aspect + 0.45 + top
+    bottom = 0.45 / fig_h
+    fig = _new_figure(WIDTH_IN, fig_h)
+    ax = fig.add_axes([0.07, bottom, plot_w / WIDTH_IN - 0.05, 1 - bottom - top / fig_h])
     vmin, vmax = rng if rng else (0.0, 1.0)
     im = ax.imshow(img, cmap=cmap, vmin=vmin, vmax=vmax, interpolation="nearest", origin="upper")
     ax.set_xlim(-0.5, cols - 0.5)
@@ -111,15 +114,29 @@ def thermogram(picture, stack_findings, title=None):
         ax.text(c.min() + 0.8, r.min() + 0.8, name, fontsize=7, color="white", va="top", ha="left",
                 path_effects=[pe.withStroke(linewidth=2.2, foreground="black")], zorder=4, clip_on=True)
 
+    from matplotlib.transforms import offset_copy
+
+    placed = []
     for f in stack_findings:
         if f.get("row") is None or f.get("col") is None:
             continue
         x, y = f["col"], f["row"]
-        ax.plot([x], [y], marker="o", ms=10.5, mfc="white", mec="black", mew=1.0, zorder=5, alpha=0.92)
+        # findings at (nearly) the same pixel, e.g. a component and its hot spot: later
+        # markers are set beside the first, with a leader to the pixel
+        k = sum(1 for (px, py) in placed if abs(px - x) <= 2 and abs(py - y) <= 2)
+        placed.append((x, y))
+        tr = offset_copy(ax.transData, fig=fig, x=12.0 * k, y=0.0, units="points")
+        if k:
+            ax.annotate("", xy=(x, y), xytext=(12.0 * k, 0.0), textcoords="offset points",
+                        arrowprops=dict(arrowstyle="-", color="white", lw=0.8), zorder=5)
+        # not clipped: a finding on the image border keeps its whole marker
+        ax.plot([x], [y], marker="o", ms=10.5, mfc="white", mec="black", mew=1.0, zorder=6, alpha=0.92,
+                clip_on=False, transform=tr)
         ax.text(x, y, str(f["number"]), fontsize=6.2 if f["number"] < 100 else 5.2, ha="center",
-                va="center_baseline", color="black", weight="bold", zorder=6)
+                va="center_baseline", color="black", weight="bold", zorder=7, clip_on=False, transform=tr)
 
-    cax = fig.add_axes([plot_w / WIDTH_IN + 0.045, 0.08, 0.022, ax.get_position().height])
+    pos = ax.get_position()
+    cax = fig.add_axes([plot_w / WIDTH_IN + 0.045, pos.y0, 0.022, pos.height])
     cb = fig.colorbar(im, cax=cax)
     cb.set_label("surface temperature [°C]", fontsize=8, color=_INK)
     cb.ax.tick_params(labelsize=7.5)
@@ -191,8 +208,8 @@ def trend(regions, reflected_series_c=None):
     for i, (name, fr) in enumerate(series):
         col = cmap(0.05 + 0.85 * i / max(k - 1, 1))
         x = [f["frame"] for f in fr]
-        ax.plot(x, [f["mean_c"] for f in fr], marker=markers[i % len(markers)], ms=3.2, lw=1.2,
-                color=col, label=name)
+        ax.plot(x, [f["mean_c"] for f in fr], marker=markers[i % len(markers)] if len(fr) <= 60 else None,
+                ms=3.2, lw=1.2, color=col, label=name)
         lo = [f["min_c"] if f.get("min_c") is not None else f["mean_c"] for f in fr]
         hi = [f["max_c"] if f.get("max_c") is not None else f["mean_c"] for f in fr]
         ax.fill_between(x, lo, hi, color=col, alpha=0.13, linewidth=0)

@@ -2,8 +2,8 @@
 fetches; prints to A4 or Letter (no fixed page size, page-break rules, images at most the
 page width).
 
-Layout and wording are this project's own. Sections: heading block, summary with the
-numbered findings, survey conditions and warnings, one section per stack (conditions and
+Layout and wording are this project's own. Sections: heading block, survey conditions and
+warnings, summary with the numbered findings, one section per stack (conditions and
 corrections, picture, histogram, trend, region tables, findings), cautions and limits.
 """
 from __future__ import annotations
@@ -78,6 +78,8 @@ footer { margin-top: 30px; border-top: 1px solid var(--rule); padding-top: 8px; 
   section#cautions { break-before: page; page-break-before: always; }
   table { font-size: 8.3pt; }
   .cols > * { flex-basis: 45%; }
+  section#conditions { break-inside: avoid; page-break-inside: avoid; }
+  figure.thermogram img { width: auto; max-height: 120mm; }
   a { color: inherit; text-decoration: none; }
 }
 """
@@ -406,7 +408,7 @@ def render(report: dict, pictures: dict, findings: list) -> str:
     """The complete HTML document (one string)."""
     s = report.get("survey", {})
     title = s.get("title") or "Infrared survey report"
-    parts = [_header(report), _summary(report, findings), _conditions(report)]
+    parts = [_header(report), _conditions(report), _summary(report, findings)]
     fig_no = 0
     for k, st in enumerate(report.get("stacks", []), 1):
         sec, fig_no = _stack_section(k, st, (pictures or {}).get(st.get("name")), findings, fig_no)

@@ -1,0 +1,241 @@
+"""Scale-out and streaming: the threaded stream, the dask.distributed run, the lazy dask
+graph, and the fast paths of the stack reader/writer give the results of the plain
+one-thread loop (these are equivalence tests of this package's own code paths)."""
+import json
+
+import numpy as np
+import pytest
+import tifffile
+
+from irpipe import parallel, pipeline
+from irpipe.config import load_config
+from irpipe.io import StackReader, StackWriter
+
+ROWS, COLS, FRAMES = 40, 56, 23
+
+CONFIG = """
+survey: {{indoor_air_c: 20.0, outdoor_air_c: 1.0, indoor_relative_humidity_pct: 55}}
+camera:
+  spectral_band_um: [7.5, 14.0]
+  input: counts
+  calibration: {{model: linear, gain: 300.0, offset_counts: 1000.0}}
+conditions:
+  emissivity:
+    labels: labels.tif
+    values: {{1: brick-common, 2: glass-uncoated, 3: galvanised-steel-weathered}}
+  reflected_temperature_c: -8.0
+  air_temperature_c: 1.0
+  distance_m: 5
+  atmosphere: {{transmittance: 0.97}}
+stacks:
+  - name: wall
+    path: wall.tif
+    assessment: envelope
+    regions:
+      - {{name: field, rect: [20, 2, 38, 30]}}
+      - {{name: pane, ellipse: {{center: [12, 40], radii: [6, 10]}}}}
+      - {{name: gable, polygon: [[0, 28], [10, 2], [10, 54]]}}
+      - {{name: overlap, rect: [8, 20, 30, 50]}}
+    hotspots: {{above_reference_k: 1.0, reference: median, min_area_px: 2}}
+    coldspots: {{below_reference_k: 1.0, reference: field, min_area_px: 2}}
+output: {{frame_chunk: {chunk}, formats: {formats}}}
+"""
+
+
+def make_survey(folder, chunk=5, formats="[tiff]"):
+    """A small raw stack with label emissivity, drifting hot spot, saturated and
+    below-range pixels (invalid by two reasons), and its config."""
+    rng = np.random.default_rng(11)
+    r, c = np.mgrid[0:ROWS, 0:COLS]
+    labels = np.ones((ROWS, COLS), np.uint8)
+    labels[6:18, 30:50] = 2
+    labels[0:3, :] = 3
+    base = 17000 + 40 * np.sin(r / 7.0) + 30 * np.cos(c / 9.0)
+    frames = []
+    for k in range(FRAMES):
+        hot = 900 * np.exp(-(((r - 25 - k % 5) / 2.0) ** 2 + ((c - 15) / 2.0) ** 2))
+        x = base + hot + rng.normal(0, 11, base.shape)
+        f = np.rint(x).astype(np.uint16)
+        if k % 4 == 1:
+            f[30, 40] = 65535          # saturated
+        if k % 6 == 2:
+            f[5, 5] = 900              # below the calibration range
+        frames.append(f)
+    tifffile.imwrite(folder / "wall.tif", np.array(frames), photometric="minisblack")
+    tifffile.imwrite(folder / "labels.tif", labels)
+    p = folder / "survey.yaml"
+    p.write_text(CONFIG.format(chunk=chunk, formats=formats))
+    return p
+
+
+def _stack_report(res):
+    rep = dict(res.report["stacks"][0])
+    rep.pop("seconds", None)
+    return rep
+
+
+@pytest.fixture(scope="module")
+def survey(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("survey")
+    cfg = make_survey(folder)
+    plain = pipeline.run(cfg, folder / "plain", quiet=True)
+    return folder, cfg, plain
+
+
+def test_plain_run_counts_invalid_pixels_by_reason(survey):
+    _, _, plain = survey
+    inv = _stack_report(plain)["invalid_pixels"]
+    assert inv["saturated"] == len(range(1, FRAMES, 4))
+    assert inv["outside_calibration_range"] == len(range(2, FRAMES, 6))
+
+
+def test_threaded_stream_equals_one_thread_loop(survey, tmp_path):
+    folder, cfg, plain = survey
+    c = load_config(cfg)
+    opts = {"frame_chunk": 5, "formats": ["tiff"], "threads": False}
+    _, _, ctxs = pipeline.plan(c, tmp_path, opts)
+    rep = pipeline.run_stack(ctxs[0])
+    want = _stack_report(plain)
+    rep.pop("seconds", None)
+    assert json.dumps(rep, sort_keys=True, default=str) == json.dumps(want, sort_keys=True, default=str)
+    a = tifffile.imread(tmp_path / "wall.temperature.tif")
+    b = tifffile.imread(folder / "plain" / "wall.temperature.tif")
+    np.testing.assert_array_equal(a, b)
+
+
+def test_local_cluster_run_equals_plain_run(survey, tmp_path):
+    distributed = pytest.importorskip("distributed")
+    folder, cfg, plain = survey
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=False,
+                                  dashboard_address=None) as cluster:
+        res = pipeline.run(cfg, tmp_path / "dist", quiet=True, scheduler=cluster.scheduler_address)
+    a = tifffile.imread(tmp_path / "dist" / "wall.temperature.tif")
+    b = tifffile.imread(folder / "plain" / "wall.temperature.tif")
+    np.testing.assert_array_equal(a, b)            # same kernel, same tables: exactly equal
+    got, want = _stack_report(res), _stack_report(plain)
+    assert got["invalid_pixels"] == want["invalid_pixels"]
+    assert got["findings"] == want["findings"]
+    for ra, rb in zip(got["regions"], want["regions"]):
+        for key in ("min_c", "max_c", "mean_c", "std_c", "p05_c", "p95_c", "valid_values"):
+            assert ra[key] == pytest.approx(rb[key], abs=1e-6), (ra["name"], key)
+        assert ra["frames"] == rb["frames"]
+
+
+def test_lazy_graph_computes_nothing_until_asked(survey):
+    pytest.importorskip("xarray")
+    from dask.callbacks import Callback
+
+    folder, cfg, _ = survey
+    c = load_config(cfg)
+    _, _, ctxs = pipeline.plan(c, folder / "lazy", {"frame_chunk": 5, "formats": ["tiff"]})
+    ctx = ctxs[0]
+    from irpipe.stages import build_chain
+
+    chain = build_chain(ctx)
+    for s in chain[:2]:
+        s.start(ctx)
+    rad = chain[[s.name for s in chain].index("radiometric")]
+
+    class Count(Callback):
+        n = 0
+
+        def _pretask(self, key, dask, state):
+            Count.n += 1
+
+    with Count():
+        raw = parallel.lazy_stack(ctx.stack["path"], ctx.shape, ctx.dtype, 5)
+        t, side = parallel.lazy_temperature(raw, parallel.PixelKernel([], rad))
+        assert t.dims == ("frame", "row", "col") and t.chunks[0] == (5, 5, 5, 5, 3)
+        assert t.attrs["units"] == "degC"
+        assert Count.n == 0                        # building the graph ran no task
+        block = t.isel(frame=slice(5, 10)).compute(scheduler="sync")
+        assert Count.n > 0
+    with StackReader(ctx.stack["path"]) as r:
+        raw_np = r.read(5, 10)
+    want = rad.lut_flat.take(np.add(raw_np, rad.offsets, dtype=np.int64) if rad.offsets is not None else raw_np)
+    np.testing.assert_array_equal(block.values, want)
+
+
+def test_stream_chain_reraises_a_stage_error_after_stopping_threads():
+    from irpipe.stages import Chunk, Stage
+
+    class Boom(Stage):
+        name = "boom"
+
+        def process(self, chunk, ctx):
+            if chunk.first == 6:
+                raise RuntimeError("boom at 6")
+
+    class Seen(Stage):
+        name = "seen"
+
+        def __init__(self):
+            self.firsts = []
+
+        def process(self, chunk, ctx):
+            self.firsts.append(chunk.first)
+
+    class Ctx:
+        shape = (20, 2, 2)
+        name = "s"
+
+    seen = Seen()
+    chunks = (Chunk(k, np.zeros((2, 2, 2))) for k in range(0, 20, 2))
+    with pytest.raises(RuntimeError, match="boom at 6"):
+        parallel.stream_chain([Boom(), seen], Ctx(), chunks)
+    assert seen.firsts == [0, 2, 4]                # in order, nothing after the failure
+
+
+def test_stream_chain_keeps_frame_order_in_every_stage():
+    from irpipe.stages import Chunk, Stage
+
+    class Rec(Stage):
+        def __init__(self, name):
+            self.name, self.firsts = name, []
+
+        def process(self, chunk, ctx):
+            self.firsts.append(chunk.first)
+            chunk.extras[self.name] = True
+
+    class Ctx:
+        shape = (300, 1, 1)
+        name = "s"
+
+    stages = [Rec(f"s{k}") for k in range(5)]
+    done = []
+    parallel.stream_chain(stages, Ctx(), (Chunk(k, np.zeros((3, 1, 1))) for k in range(0, 300, 3)),
+                          progress=lambda name, d, n: done.append(d))
+    for s in stages:
+        assert s.firsts == list(range(0, 300, 3))
+    assert done == list(range(3, 301, 3))
+
+
+def test_reader_fast_path_and_fallbacks_agree(tmp_path):
+    rng = np.random.default_rng(2)
+    data = rng.integers(0, 65535, (9, 7, 5)).astype(np.uint16)
+    tifffile.imwrite(tmp_path / "contig.tif", data, photometric="minisblack")
+    tifffile.imwrite(tmp_path / "zlib.tif", data, photometric="minisblack", compression="zlib")
+    with tifffile.TiffWriter(tmp_path / "pages.tif") as tw:      # IFDs between the pages
+        for f in data:
+            tw.write(f, contiguous=False, photometric="minisblack")
+    with tifffile.TiffWriter(tmp_path / "big.tif", byteorder=">") as tw:
+        tw.write(data, photometric="minisblack")
+    for name, fast in (("contig", True), ("zlib", False), ("pages", True), ("big", False)):
+        with StackReader(tmp_path / f"{name}.tif") as r:
+            assert r.shape == data.shape
+            np.testing.assert_array_equal(r.read(0, 9), data)
+            np.testing.assert_array_equal(r.read(2, 7), data[2:7])
+            assert (r._page_offsets() is not None) == fast, name
+
+
+def test_writer_chunks_make_one_series(tmp_path):
+    a = np.random.default_rng(3).normal(size=(11, 6, 8)).astype(np.float32)
+    w = StackWriter(tmp_path / "t.tif", a.shape, '{"units": "degC"}')
+    for s in range(0, 11, 4):
+        w.write(a[s:s + 4])
+    w.commit()
+    with tifffile.TiffFile(tmp_path / "t.tif") as t:
+        assert len(t.series) == 1 and t.series[0].shape == a.shape
+        assert t.pages[0].description == '{"units": "degC"}'
+        np.testing.assert_array_equal(t.asarray(), a)
+    assert [p.name for p in tmp_path.iterdir()] == ["t.tif"]
