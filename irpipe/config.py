@@ -284,6 +284,9 @@ class Mapping(Node):
         for k in self.required:
             if k not in v:
                 ctx.fail(path, f"missing required key '{k}'")
+        for k in self.required:
+            if v.get(k) is None:
+                ctx.fail(list(path) + [k], f"required key '{k}' has no value")
         for k, node in self.keys.items():
             if k in v and v[k] is not None:
                 out[k] = node.check(v[k], list(path) + [k], ctx)

@@ -151,7 +151,7 @@ class ModelCache:
 
 
 def path_variant(base, transmittance):
-    """The measurement model of ``base`` with another path transmittance, built cheaply.
+    """The measurement model of ``base`` (same camera and table range) for another path.
 
     Parameters
     ----------
@@ -162,24 +162,11 @@ def path_variant(base, transmittance):
 
     Returns
     -------
-    MeasurementModel
-        Same camera, temperature range and camera signal table as ``base`` (the camera
-        does not change with the path); only the path table G(T) = S(T) tau_eff(T) is
-        rebuilt. For a band-radiance camera G(T) = int R tau L_T dl is one band integral.
+    irpipe.correction.MeasurementModel
     """
     from .correction import MeasurementModel
-    from .radiometry import MonotoneTable
 
-    m = MeasurementModel.__new__(MeasurementModel)
-    tau = np.asarray(transmittance, dtype=float)
-    m.camera, m.flat, m.tau, m.t_range = base.camera, tau.ndim == 0, tau, base.t_range
-    m.signal_table = base.signal_table
-    if base.camera.kind == "band" and not m.flat:
-        func = lambda t: base.camera.response.band_radiance(t, tau)      # noqa: E731
-    else:
-        func = m.path_signal
-    m.path_table = MonotoneTable(func, *m.t_range)
-    return m
+    return MeasurementModel(base.camera, transmittance, base.t_range)
 
 
 def _solve_trials(model, signal, emissivity, reflected_temperature, air_temperature):

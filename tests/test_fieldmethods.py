@@ -76,6 +76,7 @@ def test_view_angles_label_field():
     f70 = float(oblique_factor(70.0))
     assert e[0, 0] == pytest.approx(0.93 * f70, rel=1e-6) and e[3, 0] == pytest.approx(0.93, rel=1e-6)
     assert e[0, 5] == pytest.approx(0.28) and e[3, 5] == pytest.approx(0.28)
+    # Fresnel factor (Born & Wolf sect. 1.5) on the dielectric only; metals not modelled (brief)
     assert out.distinct() == 3                        # stays in label form (lookup plan)
     assert out.uncertainty[0, 0] == pytest.approx(0.02 * f70)
     assert any("beyond 60 deg" in w for w in warn)
@@ -114,12 +115,12 @@ stacks:
       - {{name: flashing, rect: [0, 30, 30, 40], view_angle_deg: 70}}
 """)
     st = run(tmp_path / "c.yaml", quiet=True).report["stacks"][0]
-    assert st["plan"] == "lookup"
+    assert st["plan"] == "lookup"                     # label form kept (brief: fast plan)
     by = {r["name"]: r for r in st["regions"]}
     for name, truth in (("reveal", 12.0), ("steep", 12.0), ("plain", 12.0), ("flashing", 9.0)):
         assert by[name]["mean_c"] == pytest.approx(truth, abs=0.05), name   # forward model, exact inputs
     assert st["conditions"]["region_view_angles_deg"] == {"reveal": 50.0, "steep": 65.0, "flashing": 70.0}
-    warn = " ".join(st["warnings"])
+    warn = " ".join(st["warnings"])                   # brief: warn beyond 60 deg and for metals
     assert "region 'steep': viewing angle 65 deg is beyond 60 deg" in warn
     assert "region 'flashing'" in warn and "metals" in warn
 
@@ -178,16 +179,16 @@ def test_reflector_method_per_frame(tmp_path, eps_foil, spectral, apparent):
         tau = spectral_transmittance(Camera(7.5, 14.0).lam, 8.0, 1.0 + K0, 0.85)
     st = run(_reflector_scene(tmp_path, eps_foil, tau, apparent), quiet=True).report["stacks"][0]
     series = np.array(st["reflected_temperature_series_c"])
-    assert series.shape == REFL_C.shape               # one value per frame, across chunks of 3
+    assert series.shape == REFL_C.shape               # one value per frame, across chunks of 3 (ASTM E1862)
     # brief: reflected temperature recovered per frame within 0.1 K
     assert np.max(np.abs(series - REFL_C)) < 0.1
     wall = {r["name"]: r for r in st["regions"]}["wall"]
-    assert wall["mean_c"] == pytest.approx(6.0, abs=0.05)
+    assert wall["mean_c"] == pytest.approx(6.0, abs=0.05)     # truth of the generated scene
 
 
 def test_reflector_emissivity_must_be_low(tmp_path):
     cfg = _reflector_scene(tmp_path, 0.6)
-    with pytest.raises(Exception, match="is not a reflector"):
+    with pytest.raises(Exception, match="is not a reflector"):   # ASTM E1862: reflectance near 1
         run(cfg, quiet=True)
 
 
@@ -236,11 +237,11 @@ def test_emissivity_reference_method(tmp_path, capsys, reflector):
     assert rc == 0
     r = json.loads(capsys.readouterr().out)
     assert r["emissivity"] == pytest.approx(0.87, abs=0.003)      # truth of the generated scene
-    assert r["surface_temperature_c"] == pytest.approx(30.0, abs=0.05)
+    assert r["surface_temperature_c"] == pytest.approx(30.0, abs=0.05)   # truth of the generated scene
     # from the measurement equation, eps = eps_ref (S - P - G_r) / (S_ref - P - G_r), so
     # d eps / d eps_ref = eps / eps_ref exactly (derived here): contribution 0.87/0.95 * 0.02
     assert r["budget"]["reference_emissivity"] == pytest.approx(0.87 / 0.95 * 0.02, rel=0.01)
-    assert r["expanded_uncertainty"] == pytest.approx(2 * r["standard_uncertainty"], abs=2e-4)
+    assert r["expanded_uncertainty"] == pytest.approx(2 * r["standard_uncertainty"], abs=2e-4)  # k = 2, JCGM 100 6.2
     assert r["warnings"] == []
 
 
@@ -252,7 +253,7 @@ def test_emissivity_contact_method_and_text(tmp_path, capsys):
     out = capsys.readouterr().out
     assert "ASTM E1933 contact thermometer method" in out
     value = float(out.split("emissivity ")[-1].split(" +- ")[0])
-    assert value == pytest.approx(0.87, abs=0.003)
+    assert value == pytest.approx(0.87, abs=0.003)             # truth of the generated scene
     assert "(expanded uncertainty, k = 2" in out
 
 
@@ -260,6 +261,7 @@ def test_emissivity_low_contrast_warns(tmp_path, capsys):
     cfg = _emissivity_scene(tmp_path)
     main(["emissivity", str(cfg), "--stack", "s", "--region", "render", "--contact-c", "14.0", "--json"])
     r = json.loads(capsys.readouterr().out)
+    # a probe 1 K from the reflected temperature: below the 10 K contrast (common practice, from memory)
     assert any("loses its sensitivity" in w for w in r["warnings"])
 
 
@@ -274,7 +276,7 @@ def test_emissivity_writes_library(tmp_path, capsys):
     assert text.startswith("# site library\n")
     data = yaml.safe_load(text)
     assert data["old-paint"]["emissivity"] == 0.91
-    assert data["render-north"]["emissivity"] == pytest.approx(0.87, abs=0.003)
+    assert data["render-north"]["emissivity"] == pytest.approx(0.87, abs=0.003)   # scene truth
     assert "ASTM E1933" in data["render-north"]["source"]
     assert main(args) == 0                                    # again: replaced, others kept
     assert "replaced material 'render-north'" in capsys.readouterr().out
@@ -348,8 +350,8 @@ def test_calibrate_recovers_scene(tmp_path, capsys, model):
     assert "residual" in out
     doc = yaml.safe_load((tmp_path / "cal/cal.yaml").read_text())
     assert doc["calibration"]["model"] == model
-    assert doc["fit"]["rms_residual_k"] < 0.01                     # 0.5-count noise, mean of 4 frames
-    assert doc["fit"]["bad_pixels"] == 2
+    assert doc["fit"]["rms_residual_k"] < 0.01     # scene truth; 0.5-count noise, mean of 4 frames
+    assert doc["fit"]["bad_pixels"] == 2           # the two dead pixels of the generated camera
     bad = tifffile.imread(tmp_path / "cal" / doc["bad_pixel_mask"]) != 0
     assert np.array_equal(bad, dead)
     if model == "sakuma-hattori":
@@ -371,7 +373,7 @@ output: {dir: out}
     err = np.abs(got - t)
     err[dead] = 0.0                                  # filled from neighbours: not a measurement
     assert res.report["stacks"][0]["plan"] == "per-pixel"
-    assert err.max() < 0.05
+    assert err.max() < 0.05                        # truth of the generated scene
 
 
 def test_calibrate_errors(tmp_path, capsys):
@@ -407,4 +409,4 @@ def test_calibration_file_maps_apply_to_every_stack(tmp_path):
     run(tmp_path / "s.yaml", quiet=True)
     a = tifffile.imread(tmp_path / "out" / "a.temperature.tif")
     b = tifffile.imread(tmp_path / "out" / "b.temperature.tif")
-    assert np.nanmax(np.abs(a - b)) < 1e-4
+    assert np.nanmax(np.abs(a - b)) < 1e-4         # same camera, same scene: same numbers (no source)

@@ -43,8 +43,8 @@ def demo_run(base: Path):
     captured = {}
     original = pipeline.write_reports
 
-    def capture(out_dir, report, contexts):
-        original(out_dir, report, contexts)
+    def capture(out_dir, report, contexts, pictures=True):
+        original(out_dir, report, contexts, pictures=False)
         captured["pictures"] = rp.pictures_from_contexts(contexts, report, out_dir)
 
     pipeline.write_reports = capture

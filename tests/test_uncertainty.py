@@ -51,7 +51,7 @@ def test_case_b_sensitivities_and_combined_uncertainty(band_8_14):
     cam, base = band_8_14
     s, u, models, d0, a = case_b(cam, base)
     t0, c = sensitivity_coefficients(s, 0.93, -25.0 + K0, K0, 0.5, d0, models)
-    assert float(t0) - K0 == pytest.approx(2.0, abs=1e-4)
+    assert float(t0) - K0 == pytest.approx(2.0, abs=1e-4)      # REFERENCES.md section 3: case B T_obj 2 C
     # REFERENCES.md section 9 [C], case B sensitivity coefficients (rounded as printed there)
     assert float(c["camera"]) == pytest.approx(1.0718, abs=2e-4)
     assert float(c["emissivity"]) == pytest.approx(-24.77, abs=0.01)
@@ -80,7 +80,7 @@ def test_case_b_monte_carlo(band_8_14):
     assert mc.mean[0] - K0 == pytest.approx(2.009, abs=0.02)
     assert mc.low[0] - K0 == pytest.approx(-0.29, abs=0.05)
     assert mc.high[0] - K0 == pytest.approx(4.36, abs=0.05)
-    assert mc.invalid_fraction[0] == 0
+    assert mc.invalid_fraction[0] == 0                         # every trial solvable (no source needed)
 
 
 @pytest.mark.parametrize("label, t_c, eps, expected_u", [
@@ -113,6 +113,7 @@ def test_vectorised_matches_scalar(band_8_14):
     for i in range(2):
         for j in range(2):
             one = InputUncertainties(emissivity=float(u.emissivity[0, j]), reflected_temperature=2.0, camera=0.5)
+            # internal consistency (no source): the array call equals the point-by-point call
             assert uc[i, j] == pytest.approx(float(gum_uncertainty(s[i, j], eps[0, j], 260.0, 275.0, 0.5, 0.0,
                                                                    one, models)), rel=1e-9)
 
@@ -213,6 +214,7 @@ output: {{dir: out-{plan}, frame_chunk: 2}}
 def test_end_to_end_uncertainty(e2e, plan):
     out, mc, regions = e2e
     st, folder = out[plan]
+    # output contract from the brief: <name>.uncertainty.tif, float32, same shape, NaN where invalid
     assert st["plan"] == plan
     assert st["outputs"]["uncertainty"] == "wall.uncertainty.tif"
     u_img = tifffile.imread(folder / "wall.uncertainty.tif")
@@ -225,9 +227,10 @@ def test_end_to_end_uncertainty(e2e, plan):
         # brief: per-region figures consistent with an independent Monte Carlo within 15 %
         assert r["expanded_uncertainty_k"] == pytest.approx(mc[name], rel=0.15), (name, r, mc[name])
         assert r["coverage_factor"] == 2
-        # forced flat transmittance: RH and distance cannot change the path
+        # forced flat transmittance: RH and distance cannot change the path (measurement equation)
         assert r["uncertainty_budget_k"]["relative_humidity_pct"] == 0
         assert r["uncertainty_budget_k"]["distance_m"] == 0
+    # flags per the brief: U above uncertainty.limit_k, or emissivity below 0.5
     assert by["brick"]["uncertainty_flag"] is None
     assert "below 0.5" in by["gutter"]["uncertainty_flag"]
     assert "exceeds the limit 5 K" in by["gutter"]["uncertainty_flag"]
@@ -255,6 +258,6 @@ def test_stage_only_with_nonzero_section(tmp_path):
                             ("uncertainty: {camera_k: 0.5}\n", True)):
         (tmp_path / "c.yaml").write_text(base + extra)
         _, _, ctxs = plan(load_config(tmp_path / "c.yaml"), tmp_path / "out")
-        names = [s.name for s in build_chain(ctxs[0])]
+        names = [s.name for s in build_chain(ctxs[0])]   # brief: in the chain only with a non-zero value
         assert ("uncertainty" in names) is expected
         assert names.index("uncertainty") == names.index("radiometric") + 1 if expected else True

@@ -217,7 +217,8 @@ class RadiometricStage(Stage):
         g = mean_s - path
         eps_r = (ctx.conditions.get("reflected_temperature_c") or {}).get("reflector_emissivity") or 0.0
         if eps_r >= 0.5:
-            ctx.cfg.fail(["stacks", ctx.index, "conditions", "reflected_temperature_c", "reflector_emissivity"],
+            from ..pipeline import _cond_key
+            ctx.cfg.fail(_cond_key(ctx.cfg, ctx.index, "reflected_temperature_c") + ["reflector_emissivity"],
                          f"a reflector of emissivity {eps_r:g} is not a reflector; the reflector method needs a "
                          "diffuse reflector of emissivity near 0 (crumpled-and-flattened aluminium foil, ~0.03)")
         if eps_r > 0:
