@@ -19,6 +19,8 @@ import numpy as np
 
 from .errors import InputDataError, OutputError, StackError
 
+_SCANS = {}     # (path, size, mtime) -> page shapes, data ends, plain data offsets
+
 TIFF_MAGIC = (b"II*\x00", b"MM\x00*", b"II+\x00", b"MM\x00+")
 
 
@@ -38,15 +40,27 @@ class StackReader:
         self.path = Path(path)
         self.label = label
         _check_tiff_file(self.path, label)
-        size = self.path.stat().st_size
+        st = self.path.stat()
+        size = st.st_size
+        key = (str(self.path.resolve()), size, st.st_mtime_ns)
         with _TiffLog() as log:
             try:
                 self._tif = tifffile.TiffFile(str(self.path))
                 pages = self._tif.pages
                 first = pages.first if hasattr(pages, "first") else pages[0]
                 n = len(pages)
-                ends = [max((o + b for o, b in zip(p.dataoffsets, p.databytecounts)), default=0)
-                        for p in _iter_pages_light(self._tif, n)]
+                # one pass over the page headers (tifffile does not cache them): shapes,
+                # data ends, and where each page's data starts if it is stored plainly
+                # (kept per file for the process: the plan and the run open each stack)
+                scan = _SCANS.get(key)
+                if scan is None or len(scan[0]) != n:
+                    shapes, ends, offsets = [], [], []
+                    for p in _iter_pages_light(self._tif, n):
+                        shapes.append(p.shape)
+                        ends.append(max((o + b for o, b in zip(p.dataoffsets, p.databytecounts)), default=0))
+                        offsets.append(_plain_offset(p))
+                    scan = (shapes, ends, offsets)
+                shapes, ends, offsets = scan
             except Exception as exc:  # tifffile raises many kinds
                 raise StackError(f"{self.path}: {label} is not a readable TIFF ({_short(exc)}); "
                                  "copy the file from the camera card again") from None
@@ -63,7 +77,7 @@ class StackReader:
             # page with planar samples: treat the samples as frames
             self._planar = True
             n, shape = shape[0], shape[1:]
-        elif len(shape) != 2 or any(p.shape != shape for p in _iter_pages_light(self._tif, n)):
+        elif len(shape) != 2 or any(ps != shape for ps in shapes):
             self.close()
             if len(shape) == 3 and shape[-1] in (3, 4):
                 raise StackError(f"{self.path}: {label} is a colour image {tuple(shape)}, not radiometric data; "
@@ -77,6 +91,10 @@ class StackReader:
             raise StackError(f"{self.path}: {label} has {len(series.shape)}-D data {tuple(series.shape)}; "
                              "expected (frames, rows, cols)")
         self.frames = n
+        self._plain = offsets
+        _SCANS[key] = scan
+        while len(_SCANS) > 16:
+            _SCANS.pop(next(iter(_SCANS)))
         self.shape = (n,) + tuple(shape)
         self.dtype = np.dtype(first.dtype)
         self.metadata = _page_description(first)
@@ -119,15 +137,12 @@ class StackReader:
         self._offsets = None
         frame_bytes = int(np.prod(self.shape[1:])) * self.dtype.itemsize
         native = (self._tif.byteorder == "<") == (sys.byteorder == "little") or self.dtype.itemsize == 1
-        if not native:
+        offs = getattr(self, "_plain", None)
+        if not native or self._planar or offs is None or any(o is None for o in offs):
             return None
-        offs = []
-        for p in _iter_pages_light(self._tif, self.frames):
-            if not (p.is_contiguous and p.predictor == 1 and p.fillorder == 1 and p.nbytes == frame_bytes
-                    and np.dtype(p.dtype) == self.dtype):
-                return None
-            offs.append(int(p.dataoffsets[0]))
-        self._offsets = np.asarray(offs, np.int64)
+        if any(nb != frame_bytes or np.dtype(dt) != self.dtype for _, nb, dt in offs):
+            return None
+        self._offsets = np.asarray([o for o, _, _ in offs], np.int64)
         self._frame_bytes = frame_bytes
         return self._offsets
 
@@ -196,6 +211,22 @@ class _TiffLog:
     def __exit__(self, *exc):
         self.logger.removeHandler(self.handler)
         self.logger.propagate = self._prop
+
+
+def _plain_offset(page):
+    """(data offset, bytes, dtype) of a page stored uncompressed in one run, else None."""
+    try:
+        if (page.compression != 1 or page.predictor != 1 or page.fillorder != 1 or page.is_tiled
+                or page.sampleformat == 5 or page.bitspersample not in (8, 16, 32, 64)):
+            return None
+        offs, counts = page.dataoffsets, page.databytecounts
+        if not offs or sum(counts) != page.nbytes:
+            return None
+        if any(offs[i] + counts[i] != offs[i + 1] for i in range(len(offs) - 1)):
+            return None
+        return int(offs[0]), int(page.nbytes), page.dtype
+    except Exception:
+        return None
 
 
 def _iter_pages_light(tif, n):

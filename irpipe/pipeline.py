@@ -86,9 +86,15 @@ def resolve_calibration(cfg: Config, cam: dict):
         data, marks = load_yaml(path.read_text(), path.name)
         inner = data.get("calibration", data) if isinstance(data, dict) else data
         cal = CALIBRATION.check(inner, ["calibration"], Ctx(path.name, marks, path.parent))
-        if isinstance(data, dict) and "gain_map" in data and "gain_map" not in cam:
-            cam["gain_map"] = path.parent / data["gain_map"]
-            cam["offset_map"] = path.parent / data["offset_map"]
+        maps = {}
+        if isinstance(data, dict):
+            for k in ("gain_map", "offset_map", "bad_pixel_mask"):
+                if k in data and k not in cam:
+                    f = path.parent / str(data[k])
+                    if not f.is_file():
+                        raise ConfigError(f"{path.name}, {k}: file '{data[k]}' not found next to the calibration file")
+                    maps[k] = f
+        cal["maps"] = maps
     cal.setdefault("offset_counts", 0.0)
     return cal
 
@@ -156,6 +162,8 @@ def prepare_stack(cfg: Config, i: int, out_dir: Path, cameras: dict, materials, 
     if ckey not in cameras:
         cameras[ckey] = camera_model(cfg, cam)
     camera, cal = cameras[ckey]
+    for k, f in cal.get("maps", {}).items():      # maps named by a calibration file
+        cam.setdefault(k, f)
     with _where(cfg, ["stacks", i, "path"]):
         reader = StackReader(st["path"], f"stack '{st['name']}'")
     shape, dtype = reader.shape, reader.dtype
@@ -332,11 +340,11 @@ def _stack_fingerprint(cfg: Config, i: int, input_hashes: dict):
     return hashlib.sha256(blob.encode()).hexdigest()
 
 
-def _inputs_of(cfg: Config, i: int):
+def _inputs_of(cfg: Config, i: int, cam=None):
     """Files a stack depends on."""
     st = cfg.data["stacks"][i]
     files = [st["path"]]
-    cam = merged_camera(cfg.data, i)
+    cam = cam or merged_camera(cfg.data, i)
     for k in ("spectral_response", "gain_map", "offset_map", "bad_pixel_mask"):
         if k in cam:
             files.append(cam[k])
@@ -398,7 +406,7 @@ def run(config_path, out_dir=None, *, resume=False, keep_going=False, quiet=True
             results.append({"name": name, "status": "failed", "error": str(exc)})
             continue
         ctx = item
-        hashes = {str(p): sha256(p) for p in _inputs_of(cfg, ctx.index)}
+        hashes = {str(p): sha256(p) for p in _inputs_of(cfg, ctx.index, ctx.shared["camera_cfg"])}
         fp = _stack_fingerprint(cfg, ctx.index, hashes)
         prev = old_stacks.get(ctx.name)
         if resume and prev and prev.get("status") == "done" and prev.get("fingerprint") == fp and \

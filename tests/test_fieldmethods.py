@@ -384,10 +384,6 @@ def test_calibrate_errors(tmp_path, capsys):
     assert "refs.yaml" in err and ("not found" in err or "at least 2" in err)
 
 
-@pytest.mark.xfail(strict=True, reason="pipeline.prepare_stack caches the camera model per merged camera "
-                   "section, and resolve_calibration adds the calibration file's gain/offset maps to that "
-                   "section only when it builds the model: a second stack with the same camera runs without "
-                   "its NUC maps (lead: attach the maps to the cached entry)")
 def test_calibration_file_maps_apply_to_every_stack(tmp_path):
     cam = Camera(7.5, 14.0)
     g, o, dead = _nonuniform_camera()
