@@ -13,7 +13,10 @@ folder, then times, each in a fresh Python subprocess:
 for a small and a large stack (100 and 600 frames by default). The per-frame cost is
 (t_large - t_small) / (frames_large - frames_small), which removes start-up (interpreter,
 imports, tables) from the comparison; the whole-run ratio keeps it. Peak RSS is each
-subprocess's own maximum resident set (``os.wait4``).
+subprocess's own maximum resident set (``os.wait4``). ``irpipe run`` makes its outputs
+durable (fsync before the atomic rename) while the floor leaves its output in the page
+cache; ``os.sync()`` before each timed process keeps one run's write-back out of the
+next one's time.
 
     python benchmarks/bench_run.py [--frames-small 100] [--frames-large 600] [--keep]
 
@@ -80,6 +83,7 @@ stacks:
     coldspots: {{below_reference_k: 1.5, reference: wall-left, min_area_px: 20}}
 output:
   frame_chunk: 32
+  report: {report}
 """
 
 FLOOR = r"""
@@ -167,14 +171,20 @@ def write_inputs(folder: Path, frames: int):
     return stack
 
 
-def write_config(folder: Path, stack: Path):
+def write_config(folder: Path, stack: Path, report=True):
     cfg = folder / f"{stack.stem}.yaml"
-    cfg.write_text(CONFIG.format(gain=GAIN, offset=OFFSET, refl=REFL_C, air=AIR_C, tau=TAU, stack=stack.name))
+    cfg.write_text(CONFIG.format(gain=GAIN, offset=OFFSET, refl=REFL_C, air=AIR_C, tau=TAU, stack=stack.name,
+                                 report="true" if report else "false"))
     return cfg
 
 
 def timed(cmd, env):
-    """Wall time [s] and peak RSS [MB] of one subprocess (its own ru_maxrss, via wait4)."""
+    """Wall time [s] and peak RSS [MB] of one subprocess (its own ru_maxrss, via wait4).
+
+    Dirty pages of earlier runs are written out first (``os.sync``), so that no run pays
+    for the write-back of another one's output."""
+    if hasattr(os, "sync"):
+        os.sync()
     with tempfile.TemporaryFile() as err:
         t0 = time.perf_counter()
         p = subprocess.Popen(cmd, env=env, stdout=subprocess.DEVNULL, stderr=err)
@@ -189,11 +199,17 @@ def timed(cmd, env):
 
 
 def main(argv=None):
+    argv = sys.argv[1:] if argv is None else argv
+    if argv[:1] == ["--generate"]:
+        write_inputs(Path(argv[1]), int(argv[2]))
+        return 0
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--frames-small", type=int, default=100)
     ap.add_argument("--frames-large", type=int, default=600)
     ap.add_argument("--repeat", type=int, default=1, help="runs per measurement; the fastest counts")
     ap.add_argument("--keep", action="store_true", help="keep the generated folder and print it")
+    ap.add_argument("--no-report", action="store_true",
+                    help="output.report: false (no HTML report and pictures; report.json only)")
     ap.add_argument("--json", default=str(Path(__file__).with_name("results.json")))
     a = ap.parse_args(argv)
     if a.frames_large <= a.frames_small:
@@ -206,8 +222,11 @@ def main(argv=None):
         res = {}
         for n in (a.frames_small, a.frames_large):
             t0 = time.perf_counter()
-            stack = write_inputs(folder, n)
-            cfg = write_config(folder, stack)
+            # generated in a child process, so that this one stays small: a child's peak
+            # RSS counts what it inherited from this process before exec
+            subprocess.run([sys.executable, __file__, "--generate", str(folder), str(n)], env=env, check=True)
+            stack = folder / f"stack_{n}.tif"
+            cfg = write_config(folder, stack, report=not a.no_report)
             print(f"bench: generated {n} frames in {time.perf_counter() - t0:.1f} s", file=sys.stderr)
             run_cmd = [sys.executable, "-m", "irpipe.cli", "run", str(cfg), "--out", str(folder / f"out_{n}"),
                        "--quiet"]
@@ -233,7 +252,7 @@ def main(argv=None):
         per = {k: (res[l][k]["seconds"] - res[s][k]["seconds"]) / dn for k in ("run", "floor")}
         summary = {
             "shape": [None, ROWS, COLS], "dtype": "uint16", "frames_small": s, "frames_large": l,
-            "plan": res[l]["plan"],
+            "plan": res[l]["plan"], "html_report": not a.no_report, "repeat": a.repeat,
             "run_s": {str(s): res[s]["run"]["seconds"], str(l): res[l]["run"]["seconds"]},
             "floor_s": {str(s): res[s]["floor"]["seconds"], str(l): res[l]["floor"]["seconds"]},
             "per_frame_ms": {"run": round(per["run"] * 1e3, 3), "floor": round(per["floor"] * 1e3, 3)},
@@ -267,7 +286,8 @@ def main(argv=None):
     for n in (s, l):
         print(f"{f'peak RSS, {n} frames [MB]':24s}{res[n]['run']['peak_rss_mb']:{w}.0f}"
               f"{res[n]['floor']['peak_rss_mb']:{w}.0f}")
-    print(f"plan: {summary['plan']}; {os.cpu_count()} cpu(s)")
+    print(f"plan: {summary['plan']}; HTML report: {'no' if a.no_report else 'yes'}; "
+          f"best of {a.repeat}; {os.cpu_count()} cpu(s)")
     Path(a.json).write_text(json.dumps(summary, indent=2) + "\n")
     print(f"results written to {a.json}")
     return 0

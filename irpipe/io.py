@@ -13,12 +13,14 @@ import json
 import os
 import sys
 import tempfile
+import threading
 from pathlib import Path
 
 import numpy as np
 
 from .errors import InputDataError, OutputError, StackError
 
+_OPEN_LOCK = threading.RLock()
 _SCANS = {}     # (path, size, mtime) -> page shapes, data ends, plain data offsets
 
 TIFF_MAGIC = (b"II*\x00", b"MM\x00*", b"II+\x00", b"MM\x00+")
@@ -120,8 +122,9 @@ class StackReader:
             if runs is not None:
                 self._read_runs(runs, start, out)
                 return out
-            for k, i in enumerate(range(start, stop)):
-                self._tif.pages[i].asarray(out=out[k])
+            with _OPEN_LOCK:      # tifffile's file handle is not for concurrent use
+                for k, i in enumerate(range(start, stop)):
+                    self._tif.pages[i].asarray(out=out[k])
         except StackError:
             raise
         except Exception as exc:
@@ -156,16 +159,24 @@ class StackReader:
         return [(int(a), int(b), int(o[a])) for a, b in zip(bounds[:-1], bounds[1:])]
 
     def _read_runs(self, runs, start, out):
+        # positional reads (os.preadv): safe when threads share this reader
         if getattr(self, "_fh", None) is None:
-            self._fh = open(self.path, "rb", buffering=0)
+            with _OPEN_LOCK:
+                if getattr(self, "_fh", None) is None:
+                    self._fh = open(self.path, "rb", buffering=0)
+        fd = self._fh.fileno()
         buf = memoryview(out.reshape(-1).view(np.uint8))
         fb = self._frame_bytes
         for a, b, offset in runs:
             view = buf[a * fb:b * fb]
-            self._fh.seek(offset)
             got = 0
             while got < len(view):
-                n = self._fh.readinto(view[got:])
+                if hasattr(os, "preadv"):
+                    n = os.preadv(fd, [view[got:]], offset + got)
+                else:
+                    with _OPEN_LOCK:
+                        self._fh.seek(offset + got)
+                        n = self._fh.readinto(view[got:])
                 if not n:
                     bad = start + a + got // fb
                     raise StackError(f"{self.path}: {self.label} frame {bad} cannot be read (file ends "

@@ -24,6 +24,7 @@ from __future__ import annotations
 
 import os
 import queue
+import sys
 import threading
 from pathlib import Path
 
@@ -31,6 +32,8 @@ import numpy as np
 
 #: chunks alive at once in the threaded stream (reading, in stages, being written)
 INFLIGHT = 3
+#: GIL switch interval while stages run in threads [s]
+SWITCH_INTERVAL = 0.0005
 
 _END = object()
 
@@ -41,7 +44,7 @@ def _processing(chain):
     return [s for s in chain if type(s).process is not Stage.process]
 
 
-def stream_chain(chain, ctx, chunks, progress=None, *, threads=True, inflight=INFLIGHT):
+def stream_chain(chain, ctx, chunks, progress=None, *, threads=True, inflight=None):
     """Pass every chunk of ``chunks`` through ``chain`` (``s.process(chunk, ctx)``).
 
     Parameters
@@ -56,6 +59,8 @@ def stream_chain(chain, ctx, chunks, progress=None, *, threads=True, inflight=IN
         Called from the calling thread after each chunk has passed every stage.
     threads : bool
         False: one loop in the calling thread (same results).
+    inflight : int, optional
+        Chunks alive at once (default ``INFLIGHT``).
 
     Raises whatever a stage or the chunk source raised, after every thread has stopped.
     """
@@ -73,7 +78,7 @@ def stream_chain(chain, ctx, chunks, progress=None, *, threads=True, inflight=IN
 
     stop = threading.Event()
     errors = []
-    slots = threading.Semaphore(max(1, int(inflight)))
+    slots = threading.Semaphore(max(1, int(INFLIGHT if inflight is None else inflight)))
     qs = [queue.Queue(maxsize=1) for _ in range(len(active) + 1)]
 
     def put(q, item):
@@ -107,7 +112,10 @@ def stream_chain(chain, ctx, chunks, progress=None, *, threads=True, inflight=IN
                 if stop.is_set():
                     return
                 chunk = next(it, _END)
-                if not put(qs[0], chunk) or chunk is _END:
+                end = chunk is _END
+                ok = put(qs[0], chunk)
+                chunk = None
+                if not ok or end:
                     return
         except BaseException as exc:        # noqa: BLE001 - re-raised in the caller
             fail(exc)
@@ -120,11 +128,18 @@ def stream_chain(chain, ctx, chunks, progress=None, *, threads=True, inflight=IN
                     put(qs[k + 1], _END)
                     return
                 stage.process(chunk, ctx)
-                if not put(qs[k + 1], chunk):
+                ok = put(qs[k + 1], chunk)
+                chunk = None          # hold no chunk while waiting for the next
+                if not ok:
                     return
         except BaseException as exc:        # noqa: BLE001 - re-raised in the caller
             fail(exc)
 
+    # stages hand the GIL over between numpy calls: a short switch interval keeps a
+    # stage that waits for it (the radiometric stage, which feeds all others) from
+    # waiting the default 5 ms behind another stage's Python code
+    interval = sys.getswitchinterval()
+    sys.setswitchinterval(min(interval, SWITCH_INTERVAL))
     workers = [threading.Thread(target=feed, name="irpipe-read", daemon=True)]
     workers += [threading.Thread(target=work, args=(k, s), name=f"irpipe-{s.name}", daemon=True)
                 for k, s in enumerate(active)]
@@ -136,8 +151,9 @@ def stream_chain(chain, ctx, chunks, progress=None, *, threads=True, inflight=IN
             chunk = get(qs[-1])
             if chunk is _END:
                 break
-            slots.release()
             done += chunk.n
+            chunk = None
+            slots.release()
             if progress:
                 progress(ctx.name, done, total)
     except BaseException as exc:
@@ -146,6 +162,7 @@ def stream_chain(chain, ctx, chunks, progress=None, *, threads=True, inflight=IN
         stop.set()
         for w in workers:
             w.join()
+        sys.setswitchinterval(interval)
     if errors:
         raise errors[0]
 
@@ -207,9 +224,13 @@ class PixelKernel:
 
     SIDE = 5
 
-    def __init__(self, pre, radiometric):
+    def __init__(self, pre, radiometric, ctx=None):
         import copy
 
+        # what the stages' process() may read of the context (names and conditions for
+        # messages, the config for errors)
+        self.ctx_info = {} if ctx is None else {"name": ctx.name, "index": ctx.index, "cfg": ctx.cfg,
+                                                 "conditions": ctx.conditions}
         self.pre = list(pre)
         rad = copy.copy(radiometric)
         if rad.lookup:   # accumulators are the client's; each call starts its own
@@ -233,7 +254,7 @@ class PixelKernel:
         st = copy.copy(self.rad)
         codes = sorted(REASONS)
         aux = np.empty(raw.shape, self.aux_dtype) if self.aux else None
-        kctx = _KernelContext()
+        kctx = _KernelContext(**self.ctx_info)
         if st.lookup:
             st.hist = np.zeros(st.lut.size, np.int64)
             st.hist2d = st.hist.reshape(st.lut.shape)
@@ -267,12 +288,12 @@ class PixelKernel:
 class _KernelContext:
     """The little of a StackContext that the per-pixel stages' process() touches."""
 
-    def __init__(self):
+    def __init__(self, name="stack", index=0, cfg=None, conditions=None):
         from .correction import REASONS
 
         self.invalid = {v: 0 for v in REASONS.values()}
         self.shared = {}
-        self.name = "stack"
+        self.name, self.index, self.cfg, self.conditions = name, index, cfg, conditions or {}
 
 
 def lazy_temperature(raw, kernel):
@@ -326,7 +347,7 @@ def run_stack_distributed(ctx, progress=None):
                 # the client sees temperatures, not the table counts: the picture stage
                 # bins the temperatures (same bins), invalid counts come from the kernel
                 ctx.shared.pop("lookup_histogram", None)
-        kernel = PixelKernel(chain[:k_rad], rad)
+        kernel = PixelKernel(chain[:k_rad], rad, ctx)
         raw = lazy_stack(ctx.stack["path"], ctx.shape, ctx.dtype, size, label=f"stack '{ctx.name}'")
         outs = lazy_temperature(raw, kernel)
         ctx.shared["temperature_dataarray"] = outs[0]

@@ -495,17 +495,27 @@ def run_stack(ctx: StackContext, progress=None) -> dict:
     return rep
 
 
-def _progress(quiet):
-    if quiet or not sys.stderr.isatty():
+def _progress(quiet, stream=None):
+    """Progress bar on stderr, one line per stack, redrawn after each chunk of frames
+    (frames done, frames per second, time left); None (no output) with --quiet or when
+    stderr is not a terminal."""
+    stream = stream or sys.stderr
+    if quiet or not stream.isatty():
         return None
+    started = {}
 
     def show(name, done, total):
-        w = 30
+        now = time.perf_counter()
+        t0, d0 = started.setdefault(name, (now, done))
+        w = 28
         k = int(w * done / max(total, 1))
-        sys.stderr.write(f"\r{name[:24]:24s} [{'#' * k}{'.' * (w - k)}] {done}/{total} frames")
+        rate = (done - d0) / (now - t0) if now > t0 else 0.0
+        left = f"{(total - done) / rate:4.0f} s left" if rate > 0 and done < total else f"{now - t0:5.1f} s"
+        stream.write(f"\r{name[:22]:22s} [{'#' * k}{'.' * (w - k)}] {done}/{total} frames "
+                     f"{rate:5.0f}/s {left}\x1b[K")
         if done >= total:
-            sys.stderr.write("\n")
-        sys.stderr.flush()
+            stream.write("\n")
+        stream.flush()
     return show
 
 

@@ -145,13 +145,18 @@ class RegionAccumulator:
         if fmax[k] > self.max:
             self.max = float(fmax[k])
             self.max_at = self._where_fast(first_frame + k, int(np.argmax(v[k])))
-        # histogram bins: (v - lo) / step, truncated, clipped to the range
+        # histogram bins: (v - lo) / step, truncated (the cast), clipped to the range;
+        # a few frames at a time so the integer bins stay small
         np.add(v, typ(-_HIST_LO_C), out=d)
-        d *= typ(1.0 / _HIST_STEP)
         if fmin.min() < _HIST_LO_C or fmax.max() >= _HIST_HI_C:
-            np.clip(d, 0, self.nbins - 1, out=d)
-        counts = np.bincount(d.astype(np.intp).reshape(-1))
-        self.hist[:counts.size] += counts
+            np.clip(d, 0, (self.nbins - 0.5) * _HIST_STEP, out=d)
+        step = max(1, (1 << 20) // d2.shape[1])
+        q = np.empty((min(step, f), d2.shape[1]), np.intp)
+        for k in range(0, f, step):
+            m = min(step, f - k)
+            np.multiply(d2[k:k + m], typ(1.0 / _HIST_STEP), out=q[:m], casting="unsafe")
+            counts = np.bincount(q[:m].reshape(-1))
+            self.hist[:counts.size] += counts
 
     def _where_fast(self, frame, p):
         """Location of the ``p``-th value (raster order) of the region view or gather."""

@@ -39,10 +39,14 @@ stacks:
     hotspots: {{above_reference_k: 1.0, reference: median, min_area_px: 2}}
     coldspots: {{below_reference_k: 1.0, reference: field, min_area_px: 2}}
 output: {{frame_chunk: {chunk}, formats: {formats}}}
+{extra}"""
+
+PER_PIXEL = """
+uncertainty: {emissivity: 0.02, reflected_temperature_k: 2.0, camera_k: 0.5}
 """
 
 
-def make_survey(folder, chunk=5, formats="[tiff]"):
+def make_survey(folder, chunk=5, formats="[tiff]", per_pixel=False):
     """A small raw stack with label emissivity, drifting hot spot, saturated and
     below-range pixels (invalid by two reasons), and its config."""
     rng = np.random.default_rng(11)
@@ -64,7 +68,12 @@ def make_survey(folder, chunk=5, formats="[tiff]"):
     tifffile.imwrite(folder / "wall.tif", np.array(frames), photometric="minisblack")
     tifffile.imwrite(folder / "labels.tif", labels)
     p = folder / "survey.yaml"
-    p.write_text(CONFIG.format(chunk=chunk, formats=formats))
+    text = CONFIG.format(chunk=chunk, formats=formats, extra=PER_PIXEL if per_pixel else "")
+    if per_pixel:   # reflector method: per-frame reflected temperature, the per-pixel plan
+        text = text.replace("reflected_temperature_c: -8.0", "reflected_temperature_c: {reflector: foil}")
+        text = text.replace("      - {name: overlap,", "      - {name: foil, rect: [30, 44, 36, 52], role: reflector}\n"
+                                                   "      - {name: overlap,")
+    p.write_text(text)
     return p
 
 
@@ -103,9 +112,18 @@ def test_threaded_stream_equals_one_thread_loop(survey, tmp_path):
     np.testing.assert_array_equal(a, b)
 
 
-def test_local_cluster_run_equals_plain_run(survey, tmp_path):
+@pytest.mark.parametrize("per_pixel", [False, True], ids=["lookup", "per-pixel+uncertainty"])
+def test_local_cluster_run_equals_plain_run(survey, tmp_path, per_pixel):
     distributed = pytest.importorskip("distributed")
     folder, cfg, plain = survey
+    if per_pixel:
+        folder = tmp_path / "pp"
+        folder.mkdir()
+        cfg = make_survey(folder, per_pixel=True)
+        plain = pipeline.run(cfg, folder / "plain", quiet=True)
+        rep = _stack_report(plain)
+        assert rep["plan"] == "per-pixel" and len(rep["reflected_temperature_series_c"]) == FRAMES
+        assert "uncertainty" in rep["outputs"]
     with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=False,
                                   dashboard_address=None) as cluster:
         res = pipeline.run(cfg, tmp_path / "dist", quiet=True, scheduler=cluster.scheduler_address)
@@ -113,12 +131,19 @@ def test_local_cluster_run_equals_plain_run(survey, tmp_path):
     b = tifffile.imread(folder / "plain" / "wall.temperature.tif")
     np.testing.assert_array_equal(a, b)            # same kernel, same tables: exactly equal
     got, want = _stack_report(res), _stack_report(plain)
+    for key in ("plan", "reflected_temperature_series_c", "uncertainty", "outputs"):
+        assert got.get(key) == want.get(key), key
+    for name in got["outputs"].values():
+        if name.endswith(".tif"):
+            np.testing.assert_array_equal(tifffile.imread(tmp_path / "dist" / name),
+                                          tifffile.imread(folder / "plain" / name))
     assert got["invalid_pixels"] == want["invalid_pixels"]
     assert got["findings"] == want["findings"]
     for ra, rb in zip(got["regions"], want["regions"]):
         for key in ("min_c", "max_c", "mean_c", "std_c", "p05_c", "p95_c", "valid_values"):
             assert ra[key] == pytest.approx(rb[key], abs=1e-6), (ra["name"], key)
         assert ra["frames"] == rb["frames"]
+        assert ra.get("expanded_uncertainty_k") == rb.get("expanded_uncertainty_k")
 
 
 def test_lazy_graph_computes_nothing_until_asked(survey):
@@ -239,3 +264,19 @@ def test_writer_chunks_make_one_series(tmp_path):
         assert t.pages[0].description == '{"units": "degC"}'
         np.testing.assert_array_equal(t.asarray(), a)
     assert [p.name for p in tmp_path.iterdir()] == ["t.tif"]
+
+
+def test_picture_histogram_from_table_counts_equals_binning_pixels(survey, tmp_path):
+    from irpipe.report import picture_from_tiff
+
+    folder, cfg, _ = survey
+    c = load_config(cfg)
+    _, _, ctxs = pipeline.plan(c, tmp_path, {"frame_chunk": 5, "formats": ["tiff"]})
+    rep = pipeline.run_stack(ctxs[0])
+    assert rep["plan"] == "lookup"
+    got = ctxs[0].shared["picture"]
+    want = picture_from_tiff(tmp_path / "wall.temperature.tif")
+    np.testing.assert_array_equal(got["hist_counts"], want["hist_counts"])
+    np.testing.assert_array_equal(got["hist_edges_c"], want["hist_edges_c"])
+    # (the mean image's float32 sums run over other frame groups: equal to rounding)
+    np.testing.assert_allclose(got["mean_c"], want["mean_c"], rtol=0, atol=1e-4)

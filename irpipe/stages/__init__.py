@@ -92,9 +92,10 @@ def registry():
     from .envelope import EnvelopeStage
     from .electrical import ElectricalStage
     from .picture import PictureStage
+    from .dataset import DatasetWriterStage
 
     return [BadPixelStage, RadiometricStage, UncertaintyStage, RegionStatsStage, SpotStage,
-            EnvelopeStage, ElectricalStage, PictureStage, TemperatureWriterStage]
+            EnvelopeStage, ElectricalStage, PictureStage, DatasetWriterStage, TemperatureWriterStage]
 
 
 def build_chain(ctx):

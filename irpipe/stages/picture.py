@@ -4,8 +4,8 @@ valid values (0.05 K bins).
 
 With the radiometric stage's lookup plan every temperature is one entry of its table,
 so the histogram is that stage's count of each (label, raw value) entry folded through
-the table once at the end (the same bins as binning every pixel, at no per-pixel cost);
-otherwise the valid values of each chunk are binned."""
+the table once at the end: the same bins as binning every pixel, at no per-pixel cost
+here. Otherwise the valid values of each chunk are binned."""
 from __future__ import annotations
 
 import numpy as np

@@ -45,6 +45,10 @@ class RadiometricStage(Stage):
         self.lookup = (small_int and self.nuc is None and eps.distinct() is not None
                        and self.refl_k is not None)
         ctx.invalid = {v: 0 for v in REASONS.values()}
+        # whether a later stage reads the per-pixel inputs (chunk.extras "lookup_index" or
+        # "signal": the uncertainty stage)
+        from . import registry
+        self.export_index = any(getattr(c, "name", "") == "uncertainty" and c.applies(ctx) for c in registry())
         if self.lookup:
             self._build_tables(ctx)
         else:
@@ -113,12 +117,12 @@ class RadiometricStage(Stage):
         # the full-range index (label * nv + raw - base) of every pixel is only made when a
         # later stage reads it (chunk.extras["lookup_index"], the uncertainty stage);
         # otherwise each chunk works in a window of raw values around its own range
-        from . import registry
-        self.export_index = any(getattr(c, "name", "") == "uncertainty" and c.applies(ctx) for c in registry())
         self.index = None if eps.value is not None else eps.index
         self.hist2d = self.hist.reshape(len(eps_values), nv)
         self.window = None
-        # the picture stage folds this (label, raw value) histogram through the table
+        # the (label, raw value) counts give the invalid pixels by reason, and the picture
+        # stage folds them through the table into its histogram (the bins of binning
+        # every pixel, without binning any)
         ctx.shared["lookup_histogram"] = {"counts": self.hist2d, "values_c": self.lut}
 
     def _set_window(self, lo, hi):
@@ -138,9 +142,9 @@ class RadiometricStage(Stage):
         return self.window
 
     def _lookup(self, raw, chunk):
-        """Temperature of each pixel by one gather per pixel from the windowed table, and
-        the (label, raw value) histogram by one bincount per frame (identical values to a
-        gather from the full table)."""
+        """Temperature of each pixel by one gather per pixel from the windowed table
+        (identical values to a gather from the full table), and the (label, raw value)
+        counts by one bincount, a few frames per call."""
         lo, hi = int(raw.min()), int(raw.max())
         w = self.window
         if w is None or lo < w[0] or hi > w[1]:
@@ -148,13 +152,17 @@ class RadiometricStage(Stage):
         _, _, a, span = w
         nl = self.hist2d.shape[0]
         out = np.empty(raw.shape, np.float32)
-        idx = np.empty(raw.shape[1:], np.intp)
+        # a few frames per call: fewer calls (and GIL hand-overs when stages run in
+        # threads) while the index block stays small
+        step = max(1, min(raw.shape[0], (1 << 21) // max(1, raw[0].size)))
+        idx = np.empty((step,) + raw.shape[1:], np.intp)
         hist = np.zeros(nl * span, np.int64)
-        flat = idx.reshape(-1)
-        for k in range(raw.shape[0]):
-            np.add(raw[k], self.woff, out=idx)
-            np.take(self.wlut, idx, out=out[k], mode="clip")
-            hist += np.bincount(flat, minlength=hist.size)
+        for k in range(0, raw.shape[0], step):
+            m = min(step, raw.shape[0] - k)
+            ib = idx[:m]
+            np.add(raw[k:k + m], self.woff, out=ib)
+            np.take(self.wlut, ib, out=out[k:k + m], mode="clip")
+            hist += np.bincount(ib.reshape(-1), minlength=hist.size)
         h = hist.reshape(nl, span)
         self.hist2d[:, a:a + span] += h
         chunk.extras["invalid_count"] = int(h[self.wbad].sum())
