@@ -499,6 +499,8 @@ SCHEMA = Mapping(keys={
         "formats": ListOf(item=String(choices=("tiff", "netcdf", "zarr")), default=["tiff"]),
         "report": Bool(default=True),
         "frame_chunk": Number(lo=1, integer=True, default=32),
+        "fsync": Bool(default=False, help="force temperature stacks to disk before renaming them into place "
+                                         "(survives a power loss; slower). Reports are always synced."),
     }),
 }, required=("camera", "stacks"))
 

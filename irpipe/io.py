@@ -319,8 +319,12 @@ def sha256(path, bufsize=1 << 20):
 # --- atomic outputs ---------------------------------------------------------------------
 
 @contextlib.contextmanager
-def atomic_path(dest):
-    """Yield a temporary path beside ``dest``; rename it onto ``dest`` only on success."""
+def atomic_path(dest, fsync=True):
+    """Yield a temporary path beside ``dest``; rename it onto ``dest`` only on success.
+
+    With ``fsync`` the data are forced to disk before the rename (durable across a power
+    loss); without, the rename still guarantees that ``dest`` is either the old complete
+    file or the new complete one for any failure of the process itself."""
     dest = Path(dest)
     dest.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{dest.name}.", suffix=".part", dir=dest.parent)
@@ -331,7 +335,7 @@ def atomic_path(dest):
     os.chmod(tmp, 0o666 & ~umask)          # mkstemp makes 0600; outputs are ordinary files
     try:
         yield tmp
-        if tmp.is_file():
+        if fsync and tmp.is_file():
             with open(tmp, "rb+") as fh:
                 os.fsync(fh.fileno())
         os.replace(tmp, dest)
@@ -381,13 +385,14 @@ class StackWriter:
     #: start write-back after this many bytes since the last time [bytes]
     WRITEBACK_BYTES = 64 << 20
 
-    def __init__(self, dest, shape, description="", dtype=np.float32):
+    def __init__(self, dest, shape, description="", dtype=np.float32, fsync=True):
         import tifffile
 
         self.dest = Path(dest)
         self.shape = shape
         self.dtype = np.dtype(dtype)
-        self._ctx = atomic_path(self.dest)
+        self.fsync = fsync
+        self._ctx = atomic_path(self.dest, fsync=fsync)
         self.tmp = self._ctx.__enter__()
         try:
             self._tw = tifffile.TiffWriter(str(self.tmp), bigtiff=_needs_bigtiff(shape, self.dtype))
@@ -409,7 +414,7 @@ class StackWriter:
             self._tw.write(chunk, contiguous=True, metadata=None, photometric="minisblack", **kw)
             self._written += chunk.shape[0]
             self._pending += chunk.nbytes
-            if self._pending >= self.WRITEBACK_BYTES:
+            if self.fsync and self._pending >= self.WRITEBACK_BYTES:
                 self._pending = 0
                 self._writeback()
         except OSError as exc:

@@ -373,7 +373,11 @@ def _stack_section(k, st, picture, findings, fig_no):
         hist = figures.histogram(picture)
         fig_no += 1
         plots.append(f"<figure>{_img(hist, f'Histogram of {name}', 407)}<figcaption>Figure {fig_no}. "
-                     f"Distribution of all valid values of {_e(name)} (logarithmic count axis).</figcaption></figure>")
+                     + (f"Distribution of the valid values of {_e(name)}, from every "
+                        f"{int(picture.get('hist_sampled_every_chunks', 1))}th chunk of frames"
+                        if picture.get("hist_sampled_every_chunks", 1) > 1 else
+                        f"Distribution of all valid values of {_e(name)}")
+                     + " (logarithmic count axis).</figcaption></figure>")
         tr = figures.trend(st.get("regions") or [], st.get("reflected_temperature_series_c"))
         if tr is not None:
             fig_no += 1

@@ -95,7 +95,7 @@ def registry():
     from .dataset import DatasetWriterStage
 
     return [BadPixelStage, RadiometricStage, UncertaintyStage, RegionStatsStage, SpotStage,
-            EnvelopeStage, ElectricalStage, PictureStage, DatasetWriterStage, TemperatureWriterStage]
+            PictureStage, EnvelopeStage, ElectricalStage, DatasetWriterStage, TemperatureWriterStage]
 
 
 def build_chain(ctx):

@@ -30,15 +30,7 @@ class EnvelopeStage(Stage):
         return ("indoor_air_c" in s and "outdoor_air_c" in s and ctx.masks
                 and ctx.stack.get("assessment") != "electrical" and ctx.stack.get("view_from", "inside") == "inside")
 
-    def start(self, ctx):
-        self.sum = np.zeros(ctx.shape[1:], np.float64)
-        self.cnt = np.zeros(ctx.shape[1:], np.int64)
-
-    def process(self, chunk, ctx):
-        t = chunk.temperature_c
-        ok = np.isfinite(t)
-        self.sum += np.where(ok, t, 0).sum(0)
-        self.cnt += ok.sum(0)
+    # The frame-averaged image comes from the picture stage, which runs before this one.
 
     def finish(self, ctx):
         s = ctx.cfg.data["survey"]
@@ -47,8 +39,7 @@ class EnvelopeStage(Stage):
         crit_default = s.get("critical_temperature_factor")
         if crit_default is None:
             crit_default = findings.CRITICAL_TEMPERATURE_FACTORS[USE_KEYS[s.get("building_use", "dwelling")]]
-        with np.errstate(invalid="ignore", divide="ignore"):
-            mean = np.where(self.cnt > 0, self.sum / np.maximum(self.cnt, 1), np.nan)
+        mean = ctx.shared["picture"]["mean_c"].astype(np.float64)
         for r in ctx.report.get("regions", []):
             m = ctx.masks[r["name"]]
             cfg = ctx.region_cfg[r["name"]]

@@ -65,4 +65,5 @@ class PictureStage(Stage):
             "mean_c": mean, "first_c": self.first,
             "hist_edges_c": (HIST_LO_C + HIST_STEP * np.arange(nz[0], nz[-1] + 2)) if nz.size else np.array([]),
             "hist_counts": self.hist[nz[0]:nz[-1] + 1] if nz.size else np.array([], np.int64),
+            "hist_sampled_every_chunks": (self.lookup or {}).get("sampled_every_chunks", 1),
         }

@@ -123,7 +123,14 @@ class RadiometricStage(Stage):
         # the (label, raw value) counts give the invalid pixels by reason, and the picture
         # stage folds them through the table into its histogram (the bins of binning
         # every pixel, without binning any)
-        ctx.shared["lookup_histogram"] = {"counts": self.hist2d, "values_c": self.lut}
+        # Counting costs about as much as the gather. Chunks whose raw values can only give
+        # valid pixels need no count for the invalid tally; the picture's histogram then
+        # uses every 4th chunk of a long stack (> 128 frames; exact for shorter ones).
+        self.sample_every = 4 if ctx.shape[0] > 128 else 1
+        self.hist_pic = np.zeros_like(self.hist2d)
+        self._chunk_no = 0
+        ctx.shared["lookup_histogram"] = {"counts": self.hist_pic, "values_c": self.lut,
+                                          "sampled_every_chunks": self.sample_every}
 
     def _set_window(self, lo, hi):
         """Tables restricted to raw values [w0, w1] around [lo, hi] (with a margin, so that
@@ -134,6 +141,7 @@ class RadiometricStage(Stage):
         a, b = w0 - self.base, w1 - self.base + 1
         self.wlut = np.ascontiguousarray(self.lut[:, a:b]).ravel()
         self.wbad = self.reason_lut[:, a:b] != VALID
+        self.wbad_any = bool(self.wbad.any())
         if self.index is None:
             self.woff = np.intp(-w0)
         else:
@@ -156,15 +164,26 @@ class RadiometricStage(Stage):
         # threads) while the index block stays small
         step = max(1, min(raw.shape[0], (1 << 21) // max(1, raw[0].size)))
         idx = np.empty((step,) + raw.shape[1:], np.intp)
+        sampled = self._chunk_no % self.sample_every == 0
+        self._chunk_no += 1
+        for k in range(0, raw.shape[0], step):
+            m = min(step, raw.shape[0] - k)
+            np.add(raw[k:k + m], self.woff, out=idx[:m])
+            np.take(self.wlut, idx[:m], out=out[k:k + m], mode="clip")
+        # every invalid table entry is NaN: a chunk without NaN has no invalid pixel and
+        # needs no (label, raw) count, unless it is sampled for the picture's histogram
+        if not sampled and not (self.wbad_any and np.isnan(out).any()):
+            chunk.extras["invalid_count"] = 0
+            return out
         hist = np.zeros(nl * span, np.int64)
         for k in range(0, raw.shape[0], step):
             m = min(step, raw.shape[0] - k)
-            ib = idx[:m]
-            np.add(raw[k:k + m], self.woff, out=ib)
-            np.take(self.wlut, ib, out=out[k:k + m], mode="clip")
-            hist += np.bincount(ib.reshape(-1), minlength=hist.size)
+            np.add(raw[k:k + m], self.woff, out=idx[:m])
+            hist += np.bincount(idx[:m].reshape(-1), minlength=hist.size)
         h = hist.reshape(nl, span)
         self.hist2d[:, a:a + span] += h
+        if sampled:
+            self.hist_pic[:, a:a + span] += h
         chunk.extras["invalid_count"] = int(h[self.wbad].sum())
         return out
 
@@ -182,6 +201,7 @@ class RadiometricStage(Stage):
             chunk.extras["lookup_index"] = idx
             counts = np.bincount(idx.ravel(), minlength=self.hist.size)
             self.hist += counts
+            self.hist_pic += counts.reshape(self.hist_pic.shape)
             chunk.extras["invalid_count"] = int(counts[self.reason_lut.ravel() != VALID].sum())
             return
         s, reason = self.signal(raw)

@@ -127,7 +127,8 @@ class UncertaintyStage(Stage):
                 "coverage_factor": COVERAGE_FACTOR, "method": METHOD, "axes": "frame,row,col", "stack": ctx.name,
                 "source": str(ctx.stack["path"].name), "standard_uncertainties": self.sec,
                 "emissivity_uncertainty": self.u_eps_source}
-        self.writer = StackWriter(ctx.out_dir / self.file, ctx.shape, json.dumps(meta, default=str))
+        self.writer = StackWriter(ctx.out_dir / self.file, ctx.shape, json.dumps(meta, default=str),
+                                  fsync=ctx.cfg.data["output"].get("fsync", False))
 
     # -- lookup plan: U(raw value, label) ------------------------------------------------
     def _build_tables(self, ctx, eps_field, u_eps_map):

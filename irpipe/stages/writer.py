@@ -17,7 +17,8 @@ class TemperatureWriterStage(Stage):
         meta = {"software": "irpipe", "version": __version__, "quantity": "surface temperature",
                 "units": "degC", "axes": "frame,row,col", "stack": ctx.name,
                 "source": str(ctx.stack["path"].name), "conditions": ctx.report.get("conditions", {})}
-        self.writer = StackWriter(ctx.out_dir / self.file, ctx.shape, json.dumps(meta, default=str))
+        self.writer = StackWriter(ctx.out_dir / self.file, ctx.shape, json.dumps(meta, default=str),
+                                  fsync=ctx.cfg.data["output"].get("fsync", False))
 
     def process(self, chunk, ctx):
         self.writer.write(chunk.temperature_c)
