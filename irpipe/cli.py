@@ -70,6 +70,27 @@ def main(argv=None):
         return 1
 
 
+def _tune_allocator():
+    """Keep large array buffers in the process heap instead of fresh memory maps.
+
+    Each chunk of frames allocates and frees tens of MB of arrays; by default glibc maps
+    every such block anew, so each chunk pays page faults and zero-filling in the kernel
+    (measured: about a third of the per-frame cost). Raising the mmap and trim thresholds
+    (glibc ``mallopt``) lets freed blocks be reused; peak memory stays bounded by the
+    chunks in flight. Linux/glibc only; elsewhere nothing happens."""
+    if not sys.platform.startswith("linux"):
+        return
+    try:
+        import ctypes
+        libc = ctypes.CDLL("libc.so.6")
+        M_TRIM_THRESHOLD, M_TOP_PAD, M_MMAP_THRESHOLD = -1, -2, -3
+        libc.mallopt(M_MMAP_THRESHOLD, 1 << 30)
+        libc.mallopt(M_TRIM_THRESHOLD, (1 << 31) - 1)
+        libc.mallopt(M_TOP_PAD, 256 << 20)
+    except (OSError, AttributeError):
+        pass
+
+
 def _dispatch(args):
     if args.command == "schema":
         from .config import json_schema
@@ -84,6 +105,8 @@ def _dispatch(args):
         print(f"{args.config}: OK ({len(ctxs)} stack(s): "
               + ", ".join(f"{c.name} {c.shape[0]}x{c.shape[1]}x{c.shape[2]}" for c in ctxs) + ")")
         return 0
+    if args.command in ("run", "demo"):
+        _tune_allocator()
     if args.command == "run":
         from .pipeline import run
         res = run(args.config, args.out, resume=args.resume, keep_going=args.keep_going, quiet=args.quiet,

@@ -357,8 +357,13 @@ def write_text_atomic(dest, text):
         raise OutputError(f"{dest}: cannot write ({exc.strerror}); free disk space or choose another --out") from None
 
 
-def write_json_atomic(dest, obj):
-    write_text_atomic(dest, json.dumps(obj, indent=2, sort_keys=False, default=_json_default) + "\n")
+def write_json_atomic(dest, obj, compact=False):
+    """JSON, atomically; ``compact`` for machine-only files (the run manifest)."""
+    if compact:
+        text = json.dumps(obj, separators=(",", ":"), default=_json_default)
+    else:
+        text = json.dumps(obj, indent=1, default=_json_default)
+    write_text_atomic(dest, text + "\n")
 
 
 def _json_default(o):

@@ -406,20 +406,34 @@ def run(config_path, out_dir=None, *, resume=False, keep_going=False, quiet=True
             results.append({"name": name, "status": "failed", "error": str(exc)})
             continue
         ctx = item
-        hashes = {str(p): sha256(p) for p in _inputs_of(cfg, ctx.index, ctx.shared["camera_cfg"])}
-        fp = _stack_fingerprint(cfg, ctx.index, hashes)
+        files = _inputs_of(cfg, ctx.index, ctx.shared["camera_cfg"])
         prev = old_stacks.get(ctx.name)
-        if resume and prev and prev.get("status") == "done" and prev.get("fingerprint") == fp and \
-                all((out / f).exists() for f in prev.get("outputs", {}).values()):
-            skipped.append(ctx.name)
-            manifest["stacks"].append(prev)
-            results.append(prev["report"])
-            continue
+
+        def hash_inputs(files=files):
+            return {str(p): sha256(p) for p in files}
+
+        pending = None
+        if resume and prev and prev.get("status") == "done":
+            hashes = hash_inputs()
+            fp = _stack_fingerprint(cfg, ctx.index, hashes)
+            if prev.get("fingerprint") == fp and all((out / f).exists() for f in prev.get("outputs", {}).values()):
+                skipped.append(ctx.name)
+                manifest["stacks"].append(prev)
+                results.append(prev["report"])
+                continue
+        else:
+            # hashing a large stack costs about as much as reading it: do it on the side
+            # while the stack is processed (hashlib releases the GIL)
+            from concurrent.futures import ThreadPoolExecutor
+            pool = ThreadPoolExecutor(1)
+            pending = pool.submit(hash_inputs)
+            pool.shutdown(wait=False)
         try:
             t0 = time.perf_counter()
             rep = run_stack(ctx, progress)
             rep["seconds"] = round(time.perf_counter() - t0, 3)
         except IrpipeError as exc:
+            hashes = pending.result() if pending is not None else hashes
             failed.append((ctx.name, str(exc), exc))
             manifest["stacks"].append({"name": ctx.name, "status": "failed", "error": str(exc),
                                        "inputs": hashes})
@@ -428,6 +442,9 @@ def run(config_path, out_dir=None, *, resume=False, keep_going=False, quiet=True
                 raise
             results.append({"name": ctx.name, "status": "failed", "error": str(exc)})
             continue
+        if pending is not None:
+            hashes = pending.result()
+            fp = _stack_fingerprint(cfg, ctx.index, hashes)
         manifest["stacks"].append({"name": ctx.name, "status": "done", "fingerprint": fp, "inputs": hashes,
                                    "outputs": dict(ctx.outputs), "report": rep})
         results.append(rep)
@@ -445,7 +462,7 @@ def _write_manifest(out, manifest, old, partial=False):
         seen = {s["name"] for s in manifest["stacks"]}
         manifest["stacks"] += [s for s in old.get("stacks", []) if s["name"] not in seen]
         manifest["interrupted"] = True
-    write_json_atomic(out / MANIFEST, manifest)
+    write_json_atomic(out / MANIFEST, manifest, compact=True)
 
 
 def _read_json(p):

@@ -79,8 +79,12 @@ class RegionAccumulator:
     float32. Chunks with invalid values take the general float64 path.
     """
 
-    def __init__(self, name, mask):
+    def __init__(self, name, mask, hist_every=1):
         self.name = name
+        # percentiles from every ``hist_every``-th update (chunk) only: binning costs as
+        # much as all the other statistics together; 1 = exact over all frames
+        self.hist_every = max(1, int(hist_every))
+        self._calls = 0
         self.mask = np.asarray(mask, bool)
         self.idx = np.flatnonzero(self.mask)
         self.pixels = int(self.idx.size)
@@ -145,6 +149,9 @@ class RegionAccumulator:
         if fmax[k] > self.max:
             self.max = float(fmax[k])
             self.max_at = self._where_fast(first_frame + k, int(np.argmax(v[k])))
+        self._calls += 1
+        if (self._calls - 1) % self.hist_every:
+            return
         # histogram bins: (v - lo) / step, truncated (the cast), clipped to the range;
         # a few frames at a time so the integer bins stay small
         np.add(v, typ(-_HIST_LO_C), out=d)
@@ -197,8 +204,10 @@ class RegionAccumulator:
             if vv[j] > self.max:
                 self.max = float(vv[j])
                 self.max_at = self._where(first_frame + j[0], j[1])
-            b = np.clip(((v[ok] - _HIST_LO_C) / _HIST_STEP).astype(np.int64), 0, self.nbins - 1)
-            self.hist += np.bincount(b, minlength=self.nbins)
+            self._calls += 1
+            if (self._calls - 1) % self.hist_every == 0:
+                b = np.clip(((v[ok] - _HIST_LO_C) / _HIST_STEP).astype(np.int64), 0, self.nbins - 1)
+                self.hist += np.bincount(b, minlength=self.nbins)
 
     def _where(self, frame, p):
         r, c = np.unravel_index(self.idx[p], self.mask.shape)
@@ -208,7 +217,9 @@ class RegionAccumulator:
         if self.n == 0:
             return None
         cum = np.cumsum(self.hist)
-        k = int(np.searchsorted(cum, q / 100.0 * self.n))
+        if cum[-1] == 0:
+            return None
+        k = int(np.searchsorted(cum, q / 100.0 * cum[-1]))
         return _HIST_LO_C + (k + 0.5) * _HIST_STEP
 
     def result(self):
