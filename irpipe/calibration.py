@@ -190,7 +190,7 @@ class BadPixelFiller:
             return
         if self.count == mask.size:
             raise ValueError("bad-pixel mask flags every pixel")
-        targets, sources, weights = [], [], []
+        targets, sources = [], []
         remaining = mask.copy()
         valid = ~mask
         for r in range(1, max_radius + 1):

@@ -260,8 +260,7 @@ def calibrate_command(args):
     from .config import Ctx, load_yaml
     from .errors import ConfigError, InputDataError
     from .fieldmethods import fit_calibration, nuc_from_references
-    from .io import StackReader, read_spectral_response, write_text_atomic, write_tiff_atomic
-    from .radiometry import SpectralResponse
+    from .io import StackReader, write_text_atomic, write_tiff_atomic
 
     path = Path(args.references)
     if not path.is_file():
@@ -271,15 +270,8 @@ def calibrate_command(args):
     spec = _references_schema().check(data, [], ctx)
     if "spectral_band_um" not in spec and "spectral_response" not in spec:
         ctx.fail([], "give spectral_band_um: [lo, hi] or spectral_response: file.csv (the camera's band)")
-    if "spectral_response" in spec:
-        try:
-            wl, resp = read_spectral_response(spec["spectral_response"])
-            response = SpectralResponse.tabulated(wl, resp, description=spec["spectral_response"].name)
-        except ValueError as exc:
-            raise InputDataError(f"{spec['spectral_response']}: {exc}") from None
-    else:
-        lo, hi = spec["spectral_band_um"]
-        response = SpectralResponse.rectangular(lo * 1e-6, hi * 1e-6)
+    from .pipeline import spectral_response
+    response = spectral_response(spec)
     eps_bb = spec.get("blackbody_emissivity", 1.0)
     if eps_bb < 1 and "surroundings_c" not in spec:
         ctx.fail(["blackbody_emissivity"], "a blackbody emissivity below 1 needs surroundings_c (the temperature "

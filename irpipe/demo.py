@@ -185,8 +185,6 @@ def write_demo(folder) -> Path:
     """Synthesise the demo stacks into ``folder``; returns the path of survey.yaml."""
     import tifffile
 
-    from .calibration import sakuma_hattori_signal
-    from .correction import CameraModel
     from .pipeline import load_materials
 
     folder = Path(folder)

@@ -387,11 +387,8 @@ def run_stack_distributed(ctx, progress=None):
         for s in chain:
             s.finish(ctx)
     except BaseException:
-        for s in chain:
-            try:
-                s.abort(ctx)
-            except Exception:
-                pass
+        from .pipeline import abort_chain
+        abort_chain(chain, ctx)
         raise
     finally:
         ctx.shared.pop("temperature_dataarray", None)

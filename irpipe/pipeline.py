@@ -22,7 +22,7 @@ from . import __version__
 from .config import Config, load_config, merged_camera, merged_conditions
 from .constants import STANDARD_PRESSURE, ZERO_CELSIUS
 from .correction import CameraModel, MeasurementModel
-from .emissivity import EmissivityField, material_emissivity, oblique_factor
+from .emissivity import EmissivityField, material_emissivity
 from .errors import ConfigError, InputDataError, IrpipeError
 from .io import StackReader, read_map, read_spectral_response, sha256, write_json_atomic
 from .radiometry import SpectralResponse
@@ -58,17 +58,22 @@ def load_materials(cfg: Config):
     return lib
 
 
+def spectral_response(section: dict) -> SpectralResponse:
+    """The camera's response from ``spectral_response`` (CSV) or ``spectral_band_um`` of a
+    validated config section."""
+    if "spectral_response" in section:
+        try:
+            wl, resp = read_spectral_response(section["spectral_response"])
+            return SpectralResponse.tabulated(wl, resp, description=section["spectral_response"].name)
+        except ValueError as exc:
+            raise InputDataError(f"{section['spectral_response']}: {exc}") from None
+    lo, hi = section["spectral_band_um"]
+    return SpectralResponse.rectangular(lo * 1e-6, hi * 1e-6)
+
+
 def camera_model(cfg: Config, cam: dict):
     """Spectral response and signal model from a (merged) camera section."""
-    if "spectral_response" in cam:
-        try:
-            wl, resp = read_spectral_response(cam["spectral_response"])
-            response = SpectralResponse.tabulated(wl, resp, description=cam["spectral_response"].name)
-        except ValueError as exc:
-            raise InputDataError(f"{cam['spectral_response']}: {exc}") from None
-    else:
-        lo, hi = cam["spectral_band_um"]
-        response = SpectralResponse.rectangular(lo * 1e-6, hi * 1e-6)
+    response = spectral_response(cam)
     cal = resolve_calibration(cfg, cam)
     if cam["input"] == "counts" and cal["model"] == "sakuma-hattori":
         return CameraModel(response, "sakuma-hattori", (cal["A_um"] * 1e-6, cal["B_umK"] * 1e-6, cal["C"])), cal
@@ -224,7 +229,6 @@ def _prepare_regions(ctx, cfg, key, st):
 
 
 def _prepare_conditions(ctx, cfg, key, cond):
-    ckey = key + ["conditions"]
     ekey = _cond_key(cfg, ctx.index, "emissivity")
     with _where(cfg, ekey):
         ctx.emissivity = resolve_emissivity(cfg, ekey[:-1], cond["emissivity"], ctx.shape[1:], ctx.materials)
@@ -476,6 +480,15 @@ def _now():
     return _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")
 
 
+def abort_chain(chain, ctx):
+    """Let every stage release and delete what it made (a stack failed)."""
+    for s in chain:
+        try:
+            s.abort(ctx)
+        except Exception:
+            pass
+
+
 def run_stack(ctx: StackContext, progress=None) -> dict:
     """Stream one stack through its stage chain; returns its report entry."""
     if ctx.options.get("workers") or ctx.options.get("scheduler"):
@@ -496,11 +509,7 @@ def run_stack(ctx: StackContext, progress=None) -> dict:
         for s in chain:
             s.finish(ctx)
     except BaseException:
-        for s in chain:
-            try:
-                s.abort(ctx)
-            except Exception:
-                pass
+        abort_chain(chain, ctx)
         raise
     finally:
         reader.close()

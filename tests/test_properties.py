@@ -10,7 +10,7 @@ from hypothesis import strategies as st
 
 from irpipe.config import json_schema, load_config, load_yaml
 from irpipe.correction import CameraModel, MeasurementModel
-from irpipe.errors import ConfigError, IrpipeError, StackError
+from irpipe.errors import ConfigError, StackError
 from irpipe.io import StackReader
 from irpipe.radiometry import SpectralResponse
 

@@ -18,8 +18,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..constants import ZERO_CELSIUS
-from ..correction import (INVALID_INPUT, NON_PHYSICAL, OUT_OF_RANGE, REASONS, SATURATED, VALID,
-                          MeasurementModel)
+from ..correction import INVALID_INPUT, NON_PHYSICAL, OUT_OF_RANGE, REASONS, SATURATED, VALID
 from . import Stage
 
 
