@@ -292,6 +292,8 @@ def _region_tables(st):
            _table(head, rows, numeric=(1, 2, 3, 4, 5, 6, 7), nowrap=(8, 9)),
            '<p class="note">Statistics over all valid pixel values of all frames; locations as row, '
            'column and frame (r, c, f), counted from 0 at the top left.'
+           + (f' Percentiles P05 and P95 from every {int(st["percentiles_from_every_nth_chunk"])}th chunk of '
+              'frames (long stack).' if (st.get("percentiles_from_every_nth_chunk") or 1) > 1 else '')
            + (' U is the expanded uncertainty with coverage factor k = 2.' if has_u else '') + '</p>']
     env = [r for r in regions if r.get("temperature_factor") is not None or r.get("mould_risk") is not None]
     if env:
