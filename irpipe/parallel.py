@@ -362,6 +362,8 @@ def run_stack_distributed(ctx, progress=None):
         ahead = max(2, 2 * len(client.nthreads() or {0: 1}))
         codes = sorted(REASONS)
 
+        aux_key = "lookup_index" if rad.lookup else "signal"   # read before rad.lookup is reset below
+
         def computed():
             pending = {}
             for k in range(len(blocks[0])):
@@ -379,7 +381,7 @@ def run_stack_distributed(ctx, progress=None):
                     chunk.extras["reflected_temperature_k"] = side[:, 4].copy()
                     ctx.shared.setdefault("reflected_series_k", []).extend(side[:, 4].tolist())
                 if len(res) > 2:
-                    chunk.extras["lookup_index" if rad.lookup else "signal"] = res[2]
+                    chunk.extras[aux_key] = res[2]
                 yield chunk
 
         rad.lookup = False        # its finish reports ctx.invalid as accumulated above

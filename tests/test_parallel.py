@@ -46,7 +46,7 @@ uncertainty: {emissivity: 0.02, reflected_temperature_k: 2.0, camera_k: 0.5}
 """
 
 
-def make_survey(folder, chunk=5, formats="[tiff]", per_pixel=False):
+def make_survey(folder, chunk=5, formats="[tiff]", per_pixel=False, uncertainty=False):
     """A small raw stack with label emissivity, drifting hot spot, saturated and
     below-range pixels (invalid by two reasons), and its config."""
     rng = np.random.default_rng(11)
@@ -68,7 +68,7 @@ def make_survey(folder, chunk=5, formats="[tiff]", per_pixel=False):
     tifffile.imwrite(folder / "wall.tif", np.array(frames), photometric="minisblack")
     tifffile.imwrite(folder / "labels.tif", labels)
     p = folder / "survey.yaml"
-    text = CONFIG.format(chunk=chunk, formats=formats, extra=PER_PIXEL if per_pixel else "")
+    text = CONFIG.format(chunk=chunk, formats=formats, extra=PER_PIXEL if (per_pixel or uncertainty) else "")
     if per_pixel:   # reflector method: per-frame reflected temperature, the per-pixel plan
         text = text.replace("reflected_temperature_c: -8.0", "reflected_temperature_c: {reflector: foil}")
         text = text.replace("      - {name: overlap,", "      - {name: foil, rect: [30, 44, 36, 52], role: reflector}\n"
@@ -112,10 +112,18 @@ def test_threaded_stream_equals_one_thread_loop(survey, tmp_path):
     np.testing.assert_array_equal(a, b)
 
 
-@pytest.mark.parametrize("per_pixel", [False, True], ids=["lookup", "per-pixel+uncertainty"])
-def test_local_cluster_run_equals_plain_run(survey, tmp_path, per_pixel):
+@pytest.mark.parametrize("per_pixel, with_u", [(False, False), (False, True), (True, True)],
+                         ids=["lookup", "lookup+uncertainty", "per-pixel+uncertainty"])
+def test_local_cluster_run_equals_plain_run(survey, tmp_path, per_pixel, with_u):
     distributed = pytest.importorskip("distributed")
     folder, cfg, plain = survey
+    if with_u and not per_pixel:
+        folder = tmp_path / "lu"
+        folder.mkdir()
+        cfg = make_survey(folder, uncertainty=True)
+        plain = pipeline.run(cfg, folder / "plain", quiet=True)
+        rep = _stack_report(plain)
+        assert rep["plan"] == "lookup" and "uncertainty" in rep["outputs"]
     if per_pixel:
         folder = tmp_path / "pp"
         folder.mkdir()
