@@ -431,12 +431,35 @@ CAMERA = Mapping(keys={
                     help="temperature range of the inverse tables [C]; default [-60, 650]"),
 }, help="camera model")
 
+class _Ellipse(Node):
+    """An ellipse as {center|centre: [row, col], radii: [rows, cols]} or [row, col, rr, rc];
+    normalised to {"center": (row, col), "radii": (rr, rc)}."""
+
+    _map = Mapping(keys={"center": Pair(item=Number(), ordered=False), "centre": Pair(item=Number(), ordered=False),
+                         "radii": Pair(item=Number(lo=0, lo_open=True), ordered=False)}, required=("radii",))
+
+    def check(self, v, path, ctx):
+        if isinstance(v, list):
+            if len(v) != 4:
+                ctx.fail(path, f"expected [row, col, row_radius, col_radius], got {v!r}")
+            r, c = (Number().check(x, list(path) + [i], ctx) for i, x in enumerate(v[:2]))
+            a, b = (Number(lo=0, lo_open=True).check(x, list(path) + [i + 2], ctx) for i, x in enumerate(v[2:]))
+            return {"center": (r, c), "radii": (a, b)}
+        out = self._map.check(v, path, ctx)
+        if ("center" in out) == ("centre" in out):
+            ctx.fail(path, "give the ellipse's center: [row, col] (once) and radii: [rows, cols]")
+        return {"center": out.get("center", out.get("centre")), "radii": out["radii"]}
+
+    def json(self):
+        return {"description": self.help, "anyOf": [self._map.json(),
+                {"type": "array", "items": {"type": "number"}, "minItems": 4, "maxItems": 4}]}
+
+
 REGION = Mapping(keys={
     "name": String(),
     "rect": ListOf(item=Number(integer=True), help="[row0, col0, row1, col1], half-open"),
     "polygon": ListOf(item=Pair(item=Number(), ordered=False), min_items=3, help="[[row, col], ...]"),
-    "ellipse": Mapping(keys={"center": Pair(item=Number(), ordered=False), "radii": Pair(item=Number(lo=0, lo_open=True), ordered=False)},
-                       required=("center", "radii"), help="centre (row, col) and radii (rows, cols)"),
+    "ellipse": _Ellipse(help="{center: [row, col], radii: [rows, cols]} (or centre:), or [row, col, row_radius, col_radius]"),
     "mask": FilePath(help="TIFF, non-zero inside the region"),
     "role": String(choices=("surface", "reference", "reflector", "component", "ambient"), default="surface"),
     "reference": String(help="electrical: name of the similar component to compare with"),

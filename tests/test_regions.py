@@ -55,3 +55,19 @@ def test_local_linear_smooth_keeps_gradients_at_edges():
     noisy = ramp + rng.normal(0, 0.1, ramp.shape)
     inner = rect_mask((20, 30), [3, 13, 17, 27])
     assert np.std((local_linear_smooth(noisy, mask) - ramp)[inner]) < 0.05   # ~0.1/sqrt(25)*(1+)
+
+
+def test_ellipse_spellings(tmp_path):
+    # config edge: {center}, {centre} and [row, col, rr, rc] give the same region (project convention)
+    import tifffile
+    from irpipe.pipeline import run
+    tifffile.imwrite(tmp_path / "s.tif", np.full((1, 30, 40), 20000, np.uint16))
+    forms = ["{center: [15, 20], radii: [6, 9]}", "{centre: [15, 20], radii: [6, 9]}", "[15, 20, 6, 9]"]
+    regs = "".join(f"      - {{name: e{k}, ellipse: {f}}}\n" for k, f in enumerate(forms))
+    (tmp_path / "c.yaml").write_text(
+        "camera: {spectral_band_um: [8, 14], calibration: {model: linear, gain: 300, offset_counts: 1000}}\n"
+        "conditions: {emissivity: 0.9, reflected_temperature_c: 10, air_temperature_c: 10}\n"
+        "stacks:\n  - name: s\n    path: s.tif\n    regions:\n" + regs)
+    res = run(tmp_path / "c.yaml", tmp_path / "o", write_report=False)
+    px = [r["pixels"] for r in res.report["stacks"][0]["regions"]]
+    assert px[0] == px[1] == px[2] == int(ellipse_mask((30, 40), (15, 20), (6, 9)).sum())
