@@ -260,15 +260,13 @@ class ListOf(Node):
         return {**super().json(), "type": "array", "items": self.item.json()}
 
 
-_FILL_EMPTY = {"output"}
-
-
 @dataclass
 class Mapping(Node):
     """A mapping with known keys; unknown keys are rejected with the closest valid key."""
 
     keys: dict = field(default_factory=dict)
     required: tuple = ()
+    fill_empty: bool = False    # when absent, still present with its keys' defaults
 
     def check(self, v, path, ctx):
         if v is None:
@@ -292,7 +290,7 @@ class Mapping(Node):
                 out[k] = node.check(v[k], list(path) + [k], ctx)
             elif node.default is not None:
                 out[k] = node.default
-            elif isinstance(node, Mapping) and not node.required and k in _FILL_EMPTY:
+            elif isinstance(node, Mapping) and node.fill_empty:
                 out[k] = node.check({}, list(path) + [k], ctx)
         return out
 
@@ -524,7 +522,7 @@ SCHEMA = Mapping(keys={
         "frame_chunk": Number(lo=1, integer=True, default=32),
         "fsync": Bool(default=False, help="force temperature stacks to disk before renaming them into place "
                                          "(survives a power loss; slower). Reports are always synced."),
-    }),
+    }, fill_empty=True),
 }, required=("camera", "stacks"))
 
 

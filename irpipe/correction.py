@@ -27,7 +27,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .calibration import sakuma_hattori_signal, sakuma_hattori_temperature
+from .calibration import sakuma_hattori_signal
 from .radiometry import MonotoneTable, SpectralResponse, node_temperatures
 
 # reason codes for invalid pixels (uint8), shared by stages and reports
@@ -60,12 +60,6 @@ class CameraModel:
         if self.kind == "sakuma-hattori":
             return sakuma_hattori_signal(temperature, *self.sh)
         return self.response.band_radiance(temperature)
-
-    def temperature(self, signal):
-        """Blackbody-equivalent (apparent) temperature of a signal [K], exact."""
-        if self.kind == "sakuma-hattori":
-            return sakuma_hattori_temperature(signal, *self.sh)
-        raise NotImplementedError("use MeasurementModel.apparent_temperature for band signals")
 
 
 class MeasurementModel:

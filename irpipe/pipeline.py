@@ -126,10 +126,6 @@ def path_transmittance(cond, response, where):
 
 # --- preparing one stack --------------------------------------------------------------
 
-def _fail(cfg, keypath, msg):
-    cfg.fail(keypath, msg)
-
-
 class _where:
     """Add the config location to an input-data error raised inside the block."""
 
@@ -218,12 +214,12 @@ def _prepare_regions(ctx, cfg, key, st):
     for j, r in enumerate(st.get("regions", [])):
         prob = None if "mask" in r else geometry_problem(rows_cols, r)
         if prob:
-            _fail(cfg, key + ["regions", j], prob)
+            cfg.fail(key + ["regions", j], prob)
         with _where(cfg, key + ["regions", j, "mask"]):
             img = read_map(r["mask"], rows_cols, f"region '{r['name']}' mask") if "mask" in r else None
         m = region_mask(rows_cols, r, img)
         if not m.any():
-            _fail(cfg, key + ["regions", j], f"region '{r['name']}' covers no pixel")
+            cfg.fail(key + ["regions", j], f"region '{r['name']}' covers no pixel")
         ctx.masks[r["name"]] = m
         ctx.region_cfg[r["name"]] = r
 
@@ -275,7 +271,7 @@ def resolve_emissivity(cfg, keypath, spec, rows_cols, materials) -> EmissivityFi
         try:
             return material_emissivity(name, materials)
         except KeyError as exc:
-            _fail(cfg, kp, exc.args[0])
+            cfg.fail(kp, exc.args[0])
 
     def unc(name):
         return float(materials[name].get("uncertainty", 0.0)) if isinstance(name, str) else 0.0
@@ -298,7 +294,7 @@ def resolve_emissivity(cfg, keypath, spec, rows_cols, materials) -> EmissivityFi
     default = spec.get("default")
     missing = [int(v) for v in present if int(v) not in table]
     if missing and default is None:
-        _fail(cfg, keypath + ["emissivity", "values"],
+        cfg.fail(keypath + ["emissivity", "values"],
               f"label(s) {', '.join(map(str, missing[:10]))} of {spec['labels'].name} have no emissivity; "
               "add them to values or give default")
     vals, unc_vals, desc = [], [], []
