@@ -30,8 +30,9 @@ _DEMO = {}
 
 def demo_run(base: Path):
     """Write and process the demo survey once per session; returns (report, pictures,
-    out_dir). Pictures are built from the stack contexts exactly as
-    pipeline.write_reports is to build them (irpipe.report.pictures_from_contexts)."""
+    out_dir). ``pictures`` are the picture stages' data with the region masks (what
+    irpipe.report.write_all encodes); the report is written as pipeline.write_reports
+    writes it."""
     if "run" in _DEMO:
         return _DEMO["run"]
     import irpipe.pipeline as pipeline
@@ -45,7 +46,8 @@ def demo_run(base: Path):
 
     def capture(out_dir, report, contexts, pictures=True):
         original(out_dir, report, contexts, pictures=False)
-        captured["pictures"] = rp.pictures_from_contexts(contexts, report, out_dir)
+        captured["pictures"] = {c.name: {**c.shared["picture"], "masks": dict(c.masks)} for c in contexts
+                                if not isinstance(c, tuple) and "picture" in c.shared}
 
     pipeline.write_reports = capture
     try:
@@ -170,26 +172,27 @@ def test_findings_csv_numbering_matches_the_html_tables(demo):
         assert html_row[2] == loc
 
 
-def test_picture_markers_use_the_same_numbered_list(demo, monkeypatch, tmp_path):
-    """The thermogram of each stack is drawn with exactly that stack's rows of the one
-    numbered list (brief: one function for CSV, HTML table and markers)."""
-    from irpipe.report import figures
-
+def test_picture_markers_use_the_same_numbered_list(demo, tmp_path):
+    """The thermogram of each stack carries exactly that stack's rows of the one numbered
+    list, each marker centred on its finding's pixel (brief: one list for CSV, HTML table
+    and markers). Markers are circles of the picture's overlay, in image pixel units."""
     report, pictures, _ = demo
-    seen = {}
-    real = figures.thermogram
-
-    def spy(picture, stack_findings, title=None):
-        name = next(k for k, v in pictures.items() if v["mean_c"] is picture["mean_c"])
-        seen[name] = [(f["number"], f["row"], f["col"]) for f in stack_findings]
-        return real(picture, stack_findings, title)
-
-    monkeypatch.setattr(figures, "thermogram", spy)
     rp.write_all(tmp_path, report, pictures)
+    text = (tmp_path / "report.html").read_text(encoding="utf-8")
     rows = read_csv(tmp_path / "findings.csv")
-    for st in report["stacks"]:
-        expect = [(int(r["number"]), int(r["row"]), int(r["col"])) for r in rows if r["stack"] == st["name"]]
-        assert seen[st["name"]] == expect
+    assert rows
+    for k, st in enumerate(report["stacks"], 1):
+        sec = re.search(rf'<section class="stack" id="stack-{k}">.*?</section>', text, re.S).group(0)
+        marks = re.findall(r'<g class="mk" id="marker-(\d+)"><circle cx="([\d.]+)" cy="([\d.]+)"', sec)
+        expect = [r for r in rows if r["stack"] == st["name"]]
+        assert [int(m[0]) for m in marks] == [int(r["number"]) for r in expect]
+        seen = set()
+        for (num, cx, cy), r in zip(marks, expect):
+            row, col = int(r["row"]), int(r["col"])
+            assert float(cy) == row + 0.5                      # pixel centre, row
+            if (row, col) not in seen:                         # a second finding at the pixel sits beside it
+                assert float(cx) == pytest.approx(col + 0.5, abs=8.0 * max(st["rows"], st["cols"]) / 640)
+            seen.add((row, col))
 
 
 def test_demo_findings_include_the_planted_faults(demo):
@@ -211,7 +214,7 @@ def test_every_stack_has_an_embedded_png_picture(demo):
     sections = {sid: imgs for sid, imgs in page.sections}
     for k, st in enumerate(report["stacks"], 1):
         imgs = sections[f"stack-{k}"]
-        assert imgs, f"stack {st['name']} has no <img>"
+        assert len(imgs) == 1, f"stack {st['name']} has {len(imgs)} <img>, expected the thermogram"
         for src in imgs:
             assert src.startswith("data:image/png;base64,")
             png = base64.b64decode(src.split(",", 1)[1], validate=True)
@@ -219,8 +222,10 @@ def test_every_stack_has_an_embedded_png_picture(demo):
             import matplotlib.image as mpimg
             a = mpimg.imread(io.BytesIO(png), format="png")
             assert a.shape[0] > 100 and a.shape[1] > 100
-    # a multi-frame stack gets picture + histogram + trend (brief)
-    assert len(sections["stack-1"]) == 3
+    # a multi-frame stack gets picture + histogram + trend (brief), the plots as inline SVG
+    sec = re.search(r'<section class="stack" id="stack-1">.*?</section>', text, re.S).group(0)
+    assert len(re.findall(r'<svg class="plot"', sec)) == 2
+    assert "Histogram of valid values" in sec and "Region mean per frame" in sec
 
 
 def test_cautions_and_warnings_are_in_the_html(demo):

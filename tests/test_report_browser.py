@@ -136,7 +136,7 @@ def test_a_missing_picture_is_detected(demo, tmp_path, damage):
 
     good_problems, n_good = image_problems(page)
     bad_problems, n_bad = image_problems(bad.read_text(encoding="utf-8"))
-    assert good_problems == [] and n_good >= 2
+    assert good_problems == [] and n_good >= 1      # the thermogram (plots are inline SVG)
     if damage == "corrupt":
         assert len(bad_problems) == 1 and "img 0" in bad_problems[0]
     else:

@@ -1,19 +1,29 @@
-"""The self-contained HTML report: inline CSS, pictures embedded as base64 PNG, no external
-fetches; prints to A4 or Letter (no fixed page size, page-break rules, images at most the
-page width).
+"""The self-contained HTML report: inline CSS, pictures embedded as base64 PNG and inline
+SVG, no external fetches; prints to A4 or Letter (no fixed page size, page-break rules,
+images at most the page width).
 
 Layout and wording are this project's own. Sections: heading block, survey conditions and
 warnings, summary with the numbered findings, one section per stack (conditions and
 corrections, picture, histogram, trend, region tables, findings), cautions and limits.
+
+Two forms (:mod:`irpipe.report` chooses): one page for a small survey (:func:`render`), or
+for a large one an index page (:func:`render_index`: conditions, summary, numbered
+findings, one row per stack with a thumbnail) plus one page per stack
+(:func:`render_stack_page`), each self-contained and linked to the others.
+
+Pictures come encoded (:func:`irpipe.report.pictures.render_stack_pictures`); the finding
+markers are laid over them here, where the survey-wide finding numbers are known.
 """
 from __future__ import annotations
 
 import base64
 from html import escape
 
+from .. import colourtable
+from . import pictures as pics
 from . import tables
 
-CSS = """
+_CSS = """
 :root { --ink:#1d232b; --muted:#5b6570; --rule:#c9ced4; --soft:#f3f5f7; --accent:#27445f; }
 * { box-sizing: border-box; }
 html { -webkit-print-color-adjust: exact; print-color-adjust: exact; }
@@ -55,6 +65,26 @@ tr { break-inside: avoid; page-break-inside: avoid; }
 .cols > * { flex: 1 1 300px; min-width: 0; }
 figure { margin: 12px 0; break-inside: avoid; page-break-inside: avoid; }
 figure img { display: block; max-width: 100%; height: auto; border: 1px solid var(--rule); }
+.tgrow { display: flex; gap: 8px; align-items: stretch; }
+.tg { position: relative; flex: 1 1 auto; min-width: 0; max-width: 760px; border: 1px solid var(--rule); }
+figure .tg img { width: 100%; border: none; image-rendering: pixelated; }
+.tg svg.ov { position: absolute; left: 0; top: 0; width: 100%; height: 100%; overflow: visible; }
+svg.ov text.rl { fill: #fff; stroke: #000; paint-order: stroke; font-weight: 600; }
+svg.ov .mk circle { fill: #fff; fill-opacity: .92; stroke: #000; }
+svg.ov .mk text { text-anchor: middle; font-weight: 700; fill: #000; }
+.cbar { display: flex; gap: 3px; flex: 0 0 auto; padding: 4px 0; }
+.cbar .ramp { width: 16px; border: 1px solid #555; background: RAMP; }
+.cbar .ticks { position: relative; width: 34px; font-size: 10.5px; font-variant-numeric: tabular-nums; }
+.cbar .ticks span { position: absolute; left: 0; transform: translateY(50%); white-space: nowrap; }
+.cbar .ticks span::before { content: ""; display: inline-block; width: 5px; margin-right: 2px;
+                            border-top: 1px solid #555; vertical-align: middle; }
+.cbar .cbl { writing-mode: vertical-rl; transform: rotate(180deg); font-size: 11px; text-align: center; }
+svg.plot { display: block; width: 100%; height: auto; border: 1px solid var(--rule); font-size: 10px; }
+svg.plot .pt { font-size: 11px; font-weight: 600; fill: #1b1b1b; }
+svg.plot .al { font-size: 10.5px; fill: #1b1b1b; }
+svg.plot .tk { font-size: 9.5px; fill: #333; }
+td.thumb img { display: block; border: 1px solid var(--rule); width: 160px; max-width: 100%; height: auto; }
+nav.pages { display: flex; justify-content: space-between; gap: 12px; font-size: 12px; margin: 0 0 8px; }
 figcaption { font-size: 11.5px; color: var(--muted); margin-top: 4px; }
 .badge { display: inline-block; padding: 0 6px; margin: 1px 0; border-radius: 3px; font-size: 11px;
          font-weight: 600; white-space: nowrap; border: 1px solid #888; }
@@ -79,10 +109,12 @@ footer { margin-top: 30px; border-top: 1px solid var(--rule); padding-top: 8px; 
   table { font-size: 8.3pt; }
   .cols > * { flex-basis: 45%; }
   section#conditions { break-inside: avoid; page-break-inside: avoid; }
-  figure.thermogram img { width: auto; max-height: 120mm; }
+  figure.thermogram .tg { max-width: 150mm; }
+  nav.pages { display: none; }
   a { color: inherit; text-decoration: none; }
 }
 """
+CSS = _CSS.replace("RAMP", colourtable.css_gradient("sequential"))     # the colour bar, once per page
 
 
 # --- formatting -----------------------------------------------------------------------
@@ -170,11 +202,13 @@ def _header(report):
             f"<h1>{_e(title)}</h1><dl class=\"meta\">{dl}</dl></header>")
 
 
-def _finding_rows(findings, with_stack):
+def _finding_rows(findings, with_stack, href=None):
+    """Table rows of findings; ``href`` maps a stack name to its page file (index page)."""
     rows = []
     for f in findings:
         value = _f(f["peak_c"], 1, " °C")
-        r = [f'<a href="#finding-{f["number"]}">{f["number"]}</a>' if with_stack else
+        page = _e((href or {}).get(f["stack"], ""))
+        r = [f'<a href="{page}#finding-{f["number"]}">{f["number"]}</a>' if with_stack else
              f'<span id="finding-{f["number"]}">{f["number"]}</span>']
         if with_stack:
             r.append(_e(f["stack"]))
@@ -189,7 +223,7 @@ def _finding_rows(findings, with_stack):
     return rows
 
 
-def _summary(report, findings):
+def _summary(report, findings, href=None):
     done = tables.done_stacks(report)
     failed = [s for s in report.get("stacks", []) if s.get("status", "done") != "done"]
     by = {k: sum(1 for f in findings if f["kind"] == k) for k in tables.KIND_ORDER}
@@ -204,7 +238,7 @@ def _summary(report, findings):
     if findings:
         out.append("<h3>Numbered findings</h3>")
         out.append(_table(["No.", "Stack", "Finding", "Location", "Peak / lowest", "Difference", "Grade"],
-                          _finding_rows(findings, True), numeric=(0, 4, 5), nowrap=(1, 3)))
+                          _finding_rows(findings, True, href), numeric=(0, 4, 5), nowrap=(1, 3)))
     else:
         out.append('<div class="box ok">No findings were raised by the configured thresholds and '
                    'assessments.</div>')
@@ -340,9 +374,28 @@ def _region_tables(st):
     return "".join(out)
 
 
-def _stack_section(k, st, picture, findings, fig_no):
-    from . import figures
+def _thermogram(name, st, enc, mine, fig_no):
+    """The thermogram figure: indexed PNG, vector overlay (region names, numbered findings)
+    and the colour bar of this stack's scale."""
+    rng = enc.get("scale_c")
+    levels = enc.get("levels")
+    invalid = enc.get("invalid_px") or 0
+    b64 = base64.b64encode(enc["thermogram_png"]).decode("ascii")
+    img = (f'<img src="data:image/png;base64,{b64}" width="{enc["cols"]}" height="{enc["rows"]}" '
+           f'alt="{_e(f"Corrected temperature of {name}")}">')
+    step = (rng[1] - rng[0]) / levels if rng and levels else None
+    cap = (f"Figure {fig_no}. {_e(name)}: corrected surface temperature, mean over "
+           f"{_e(st.get('frames'))} frame(s), colour map inferno"
+           + (f", scale {rng[0]:.1f} to {rng[1]:.1f} °C in {levels} steps of {step:.2g} K" if rng else "")
+           + ". White outlines: regions, named at their top-left corner. Numbered circles: findings, "
+           "at the pixel of their peak or lowest value."
+           + (f" Grey: {invalid} pixel(s) without a valid value." if invalid else ""))
+    return (f'<figure class="thermogram"><div class="tgrow"><div class="tg">{img}{pics.overlay_svg(enc, mine)}'
+            f'</div>{pics.colour_bar_html(rng)}</div><figcaption>{cap}</figcaption></figure>')
 
+
+def _stack_section(k, st, enc, findings, fig_no):
+    """One stack's section; ``enc`` its encoded pictures (or None)."""
     name = st["name"]
     out = [f'<section class="stack" id="stack-{k}"><div class="stackhead"><h2>{k}. {_e(name)}</h2></div>']
     if st.get("status", "done") != "done":
@@ -357,33 +410,20 @@ def _stack_section(k, st, picture, findings, fig_no):
     out.append('<div class="cols"><div><h3>Conditions applied</h3>' + _stack_conditions(st) + "</div>"
                '<div><h3>Corrections and data quality</h3>' + _stack_corrections(st) + "</div></div>")
     mine = [f for f in findings if f["stack"] == name]
-    if picture and picture.get("mean_c") is not None:
+    if enc and enc.get("thermogram_png"):
         fig_no += 1
-        rng = figures.colour_range(picture["mean_c"])
-        import numpy as np
-        invalid = int(np.count_nonzero(~np.isfinite(np.asarray(picture["mean_c"], float))))
-        png = figures.thermogram(picture, mine)
-        cap = (f"Figure {fig_no}. {_e(name)}: corrected surface temperature, mean over "
-               f"{_e(st.get('frames'))} frame(s), colour map {figures.TEMPERATURE_CMAP}"
-               + (f", scale {rng[0]:.1f} to {rng[1]:.1f} °C" if rng else "")
-               + ". White outlines: regions, named at their top-left corner. Numbered circles: findings, "
-               "at the pixel of their peak or lowest value."
-               + (f" Grey: {invalid} pixel(s) without a valid value." if invalid else ""))
-        out.append(f'<figure class="thermogram">{_img(png, f"Corrected temperature of {name}", 814)}'
-                   f"<figcaption>{cap}</figcaption></figure>")
+        out.append(_thermogram(name, st, enc, mine, fig_no))
         plots = []
-        hist = figures.histogram(picture)
         fig_no += 1
-        plots.append(f"<figure>{_img(hist, f'Histogram of {name}', 407)}<figcaption>Figure {fig_no}. "
-                     + (f"Distribution of the valid values of {_e(name)}, from every "
-                        f"{int(picture.get('hist_sampled_every_chunks', 1))}th chunk of frames"
-                        if picture.get("hist_sampled_every_chunks", 1) > 1 else
-                        f"Distribution of all valid values of {_e(name)}")
+        every = int(enc.get("hist_sampled_every_chunks", 1) or 1)
+        plots.append(f"<figure>{enc.get('histogram_svg', '')}<figcaption>Figure {fig_no}. "
+                     + (f"Distribution of the valid values of {_e(name)}, from every {every}th chunk of frames"
+                        if every > 1 else f"Distribution of all valid values of {_e(name)}")
                      + " (logarithmic count axis).</figcaption></figure>")
-        tr = figures.trend(st.get("regions") or [], st.get("reflected_temperature_series_c"))
+        tr = pics.trend_svg(st.get("regions") or [], st.get("reflected_temperature_series_c"))
         if tr is not None:
             fig_no += 1
-            plots.append(f"<figure>{_img(tr, f'Region means per frame of {name}', 407)}<figcaption>Figure {fig_no}. "
+            plots.append(f"<figure>{tr}<figcaption>Figure {fig_no}. "
                          f"Mean of each region per frame; the shaded band spans the region's minimum to maximum."
                          "</figcaption></figure>")
         out.append('<div class="cols">' + "".join(plots) + "</div>")
@@ -410,8 +450,22 @@ def _cautions(report):
             f'(schema {_e(report.get("schema"))}).</p></section>')
 
 
+def _footer(report):
+    sw = report.get("software", {})
+    return (f"<footer>{_e(sw.get('name', 'irpipe'))} {_e(sw.get('version', ''))} · report schema "
+            f"{_e(report.get('schema'))} · created {_e(report.get('created_utc'))}</footer>")
+
+
+def _document(title, parts):
+    return ("<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n"
+            "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">\n"
+            f"<title>{_e(title)}</title>\n<style>{CSS}</style>\n</head>\n<body>\n<main>\n"
+            + "\n".join(parts) + "\n</main>\n</body>\n</html>\n")
+
+
 def render(report: dict, pictures: dict, findings: list) -> str:
-    """The complete HTML document (one string)."""
+    """The complete single-page HTML document (one string); ``pictures`` maps a stack name
+    to its encoded pictures."""
     s = report.get("survey", {})
     title = s.get("title") or "Infrared survey report"
     parts = [_header(report), _conditions(report), _summary(report, findings)]
@@ -419,12 +473,61 @@ def render(report: dict, pictures: dict, findings: list) -> str:
     for k, st in enumerate(report.get("stacks", []), 1):
         sec, fig_no = _stack_section(k, st, (pictures or {}).get(st.get("name")), findings, fig_no)
         parts.append(sec)
-    parts.append(_cautions(report))
-    sw = report.get("software", {})
-    parts.append(f"<footer>{_e(sw.get('name', 'irpipe'))} {_e(sw.get('version', ''))} · report schema "
-                 f"{_e(report.get('schema'))} · created {_e(report.get('created_utc'))}</footer>")
-    return ("<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n"
-            "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">\n"
-            f"<title>{_e(title)}</title>\n<style>{CSS}</style>\n</head>\n<body>\n<main>\n"
-            + "\n".join(parts) + "\n</main>\n</body>\n</html>\n")
+    parts += [_cautions(report), _footer(report)]
+    return _document(title, parts)
 
+
+def _stack_rows(report, pictures, findings, href):
+    rows = []
+    for k, st in enumerate(report.get("stacks", []), 1):
+        name = st.get("name")
+        link = f'<a href="{_e(href.get(name, ""))}">{_e(name)}</a>'
+        enc = (pictures or {}).get(name) or {}
+        if st.get("status", "done") != "done":
+            rows.append([str(k), link, "–", "–", "–", "–", f'<span class="badge p1">not processed</span> '
+                         f'{_e(st.get("error"))}'])
+            continue
+        thumb = (_img(enc["thumbnail_png"], f"Thumbnail of {name}", 160) if enc.get("thumbnail_png") else "–")
+        rng = enc.get("scale_c")
+        mine = [f for f in findings if f["stack"] == name]
+        nums = ", ".join(f'<a href="{_e(href.get(name, ""))}#finding-{f["number"]}">{f["number"]}</a>' for f in mine)
+        regions = ", ".join(_e(r.get("name")) for r in st.get("regions") or [])
+        warn = f' <span class="badge p3">{len(st["warnings"])} warning(s)</span>' if st.get("warnings") else ""
+        rows.append([str(k), link + warn, thumb, _e(st.get("frames")),
+                     f"{rng[0]:.1f} to {rng[1]:.1f}" if rng else "–", regions or "–", nums or "none"])
+    return rows
+
+
+def render_index(report: dict, pictures: dict, findings: list, href: dict) -> str:
+    """The index page of a large survey: heading, conditions, summary with the numbered
+    findings (linked to their stack pages), one row per stack with a thumbnail, cautions.
+    ``href`` maps each stack name to its page file, relative to the index."""
+    s = report.get("survey", {})
+    title = s.get("title") or "Infrared survey report"
+    rows = _stack_rows(report, pictures, findings, href)
+    table = _table(["No.", "Stack", "Picture", "Frames", "Scale [°C]", "Regions", "Findings"], rows,
+                   numeric=(0, 3), nowrap=(4,))
+    table = table.replace("<td><img", '<td class="thumb"><img')
+    stacks = ('<section id="stacks"><h2>Stacks</h2><p class="note">One page per stack, with its picture, '
+              'histogram, trend, region tables and findings; the picture here is a thumbnail of the stack\'s '
+              'frame-averaged corrected temperature on its own colour scale.</p>' + table + "</section>")
+    parts = [_header(report), _conditions(report), _summary(report, findings, href), stacks, _cautions(report),
+             _footer(report)]
+    return _document(title, parts)
+
+
+def render_stack_page(report: dict, k: int, st: dict, enc, findings: list, index_href: str,
+                      prev_href=None, next_href=None) -> str:
+    """The page of stack number ``k`` of a large survey: a short heading linked to the index
+    (and to the previous and next stack), the stack's section and the cautions."""
+    s = report.get("survey", {})
+    title = s.get("title") or "Infrared survey report"
+    nav = [f'<a href="{_e(index_href)}">Survey index</a>',
+           "<span>" + " · ".join(x for x in (
+               f'<a href="{_e(prev_href)}">previous stack</a>' if prev_href else "",
+               f'<a href="{_e(next_href)}">next stack</a>' if next_href else "") if x) + "</span>"]
+    head = (f'<header class="top"><p class="kicker">Infrared thermography survey report · stack {k} of '
+            f'{len(report.get("stacks", []))}</p><h1>{_e(title)}</h1></header>'
+            f'<nav class="pages">{"".join(nav)}</nav>')
+    sec, _ = _stack_section(k, st, enc, findings, 0)
+    return _document(f"{st.get('name')} · {title}", [head, sec, _cautions(report), _footer(report)])
