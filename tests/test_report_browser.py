@@ -147,3 +147,50 @@ def test_a_missing_picture_is_detected(demo, tmp_path, damage):
     # the temperature picture is most of the saturated area; without it at most half remains
     assert sat_good > 0.05, sat_good
     assert sat_bad < 0.5 * sat_good, (sat_good, sat_bad)
+
+
+# --- the index page plus stack pages of a large survey (issue 10) ---------------------
+
+def paged_copy(demo, folder):
+    """The demo's stacks repeated under new names until the survey is over the threshold,
+    written as index page plus stack pages into ``folder``."""
+    from irpipe import report as rp
+
+    report, pictures, _ = demo
+    stacks, pics = [], {}
+    j = 0
+    while len(stacks) <= rp.PAGED_ABOVE_STACKS:
+        for st in report["stacks"]:
+            name = f"{st['name']} / copy {j}"
+            stacks.append({**st, "name": name, "findings": st.get("findings", [])})
+            if st["name"] in pictures:
+                pics[name] = pictures[st["name"]]
+        j += 1
+    rp.write_all(folder, {**report, "stacks": stacks}, pics)
+    return folder, len(stacks)
+
+
+def test_index_and_stack_pages_render_and_link(demo, tmp_path):
+    exe = chromium()
+    out, n = paged_copy(demo, tmp_path / "paged")
+    index = (out / "report.html").read_text(encoding="utf-8")
+    problems, n_img = image_problems(index)
+    assert problems == [] and n_img == n           # one thumbnail per stack, each a decodable PNG
+    hrefs = set(re.findall(r'href="([^"#]+)', index))
+    assert len(hrefs) == n and all((out / h).is_file() for h in hrefs)
+    # the stack table (after the numbered findings, which fill the first window) on its own
+    head = index[:index.index("<main>") + len("<main>")]
+    table = re.search(r'<section id="stacks">.*?</section>', index, re.S).group(0)
+    only = tmp_path / "stacks.html"
+    only.write_text(head + table + "</main></body></html>\n", encoding="utf-8")
+    distinct, nonwhite, saturated = coverage(screenshot(exe, only, tmp_path / "index"))
+    # text, table rules and a column of colour thumbnails
+    assert distinct > 300, distinct
+    assert 0.05 < nonwhite < 0.9, nonwhite
+    assert saturated > 0.01, saturated
+    page = out / sorted(hrefs)[0]
+    text = page.read_text(encoding="utf-8")
+    problems, n_img = image_problems(text)
+    assert problems == [] and n_img == 1 and 'href="../report.html"' in text
+    distinct, nonwhite, saturated = coverage(screenshot(exe, page, tmp_path / "page"))
+    assert distinct > 500 and saturated > 0.02, (distinct, saturated)
