@@ -288,7 +288,11 @@ def main(argv=None):
               f"{res[n]['floor']['peak_rss_mb']:{w}.0f}")
     print(f"plan: {summary['plan']}; HTML report: {'no' if a.no_report else 'yes'}; "
           f"best of {a.repeat}; {os.cpu_count()} cpu(s)")
-    Path(a.json).write_text(json.dumps(summary, indent=2) + "\n")
+    try:                  # keep the other benchmarks' sections (bench_survey.py: "survey")
+        kept = {k: v for k, v in json.loads(Path(a.json).read_text()).items() if k.startswith("survey")}
+    except (OSError, ValueError):
+        kept = {}
+    Path(a.json).write_text(json.dumps({**summary, **kept}, indent=2) + "\n")
     print(f"results written to {a.json}")
     return 0
 
