@@ -261,7 +261,7 @@ def test_html_is_self_contained_printable_and_small(demo):
 
 def test_importing_the_report_package_does_not_load_matplotlib():
     # brief: matplotlib imported only inside the drawing functions (start-up speed)
-    code = "import sys, irpipe.report, irpipe.report.html, irpipe.report.figures; " \
+    code = "import sys, irpipe.report, irpipe.report.html, irpipe.report.pictures; " \
            "sys.exit(1 if 'matplotlib' in sys.modules else 0)"
     assert subprocess.run([sys.executable, "-c", code]).returncode == 0
 
