@@ -209,7 +209,7 @@ def timed(cmd, env):
 def report_bytes(out: Path):
     """(total bytes of report.html plus the per-stack pages, list of page files)."""
     files = [out / "report.html"] if (out / "report.html").is_file() else []
-    pages = out / "report"
+    pages = out / "report_pages"
     if pages.is_dir():
         files += sorted(p for p in pages.rglob("*.html"))
     return sum(f.stat().st_size for f in files), files
