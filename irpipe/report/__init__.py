@@ -85,9 +85,12 @@ def write_all(out_dir: Path, report: dict, pictures: dict) -> list[str]:
     if len(stacks) > PAGED_ABOVE_STACKS:
         href = page_file_names([st.get("name") for st in stacks])
         files = [href[st.get("name")] for st in stacks]
+        by_stack = {}
+        for f in findings:
+            by_stack.setdefault(f["stack"], []).append(f)
         for k, st in enumerate(stacks, 1):
             pages[files[k - 1]] = html.render_stack_page(
-                report, k, st, enc.get(st.get("name")), findings, "../report.html",
+                report, k, st, enc.get(st.get("name")), by_stack.get(st.get("name"), []), "../report.html",
                 "../" + files[k - 2] if k > 1 else None, "../" + files[k] if k < len(stacks) else None)
         page = html.render_index(report, enc, findings, href)
     else:

@@ -479,6 +479,9 @@ def render(report: dict, pictures: dict, findings: list) -> str:
 
 def _stack_rows(report, pictures, findings, href):
     rows = []
+    by_stack = {}
+    for f in findings:
+        by_stack.setdefault(f["stack"], []).append(f)
     for k, st in enumerate(report.get("stacks", []), 1):
         name = st.get("name")
         link = f'<a href="{_e(href.get(name, ""))}">{_e(name)}</a>'
@@ -489,7 +492,7 @@ def _stack_rows(report, pictures, findings, href):
             continue
         thumb = (_img(enc["thumbnail_png"], f"Thumbnail of {name}", 160) if enc.get("thumbnail_png") else "–")
         rng = enc.get("scale_c")
-        mine = [f for f in findings if f["stack"] == name]
+        mine = by_stack.get(name, [])
         nums = ", ".join(f'<a href="{_e(href.get(name, ""))}#finding-{f["number"]}">{f["number"]}</a>' for f in mine)
         regions = ", ".join(_e(r.get("name")) for r in st.get("regions") or [])
         warn = f' <span class="badge p3">{len(st["warnings"])} warning(s)</span>' if st.get("warnings") else ""
