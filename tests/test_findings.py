@@ -242,10 +242,12 @@ def test_find_spots_errors():
 
 
 # --------------------------------------------------------------------------- electrical
-# Band edges: NETA MTS Table 100.18 as commonly reproduced (REFERENCES.md §7) -- from memory.
-# Non-integer readings: project convention, a continuous scale [1, 3), [3, 15), [15, inf) so a
-# reading between printed integer bands takes the more severe band (documented in
-# irpipe/data/electrical_severity.yaml; common practice, no source).
+# Band edges: NETA MTS Table 100.18 as commonly reproduced (docs/references.md §7) -- from memory.
+# Printed bands over a similar component: 1-3, 4-15, >15 K; over ambient: 1-10, 11-20, 21-40,
+# >40 K. A reading equal to a printed limit belongs to the band that prints it (3 K is "1-3",
+# 15 K is "4-15", 10 K is "1-10", 40 K is "21-40"); a reading between two printed integer bands
+# (3.5 K, 15.5 K, 10.5 K) takes the more severe band -- project convention for a safety
+# finding, documented in irpipe/data/electrical_severity.yaml (common practice, no source).
 
 @pytest.fixture(scope="module")
 def table():
@@ -253,7 +255,12 @@ def table():
 
 
 @pytest.mark.parametrize("ref_k, priority", [
-    (0.9, None), (1.0, 4), (2.999, 4), (3.0, 3), (3.5, 3), (4.0, 3), (14.9, 3), (15.0, 1),
+    (0.9, None), (1.0, 4), (2.999, 4),
+    (3.0, 4),                       # printed "1-3": exactly 3 K is in the band that prints it [M]
+    (3.001, 3), (3.5, 3),           # between printed "1-3" and "4-15": the more severe band
+    (4.0, 3), (14.9, 3),
+    (15.0, 3),                      # printed "4-15": exactly 15 K is in that band [M]
+    (15.001, 1), (15.5, 1),         # between "4-15" and ">15": the more severe band
     (15.9, 1), (100.0, 1), (-2.0, None),
 ])
 def test_grading_over_reference_band_edges(table, ref_k, priority):
@@ -262,8 +269,13 @@ def test_grading_over_reference_band_edges(table, ref_k, priority):
 
 
 @pytest.mark.parametrize("amb_k, priority", [
-    (0.5, None), (1.0, 4), (9.99, 4), (10.0, 3), (10.5, 3), (19.9, 3), (20.0, 2), (39.99, 2),
-    (40.0, 1),
+    (0.5, None), (1.0, 4), (9.99, 4),
+    (10.0, 4),                      # printed "1-10" [M]
+    (10.5, 3), (11.0, 3), (19.9, 3),
+    (20.0, 3),                      # printed "11-20" [M]
+    (20.5, 2), (39.99, 2),
+    (40.0, 2),                      # printed "21-40" [M]
+    (40.5, 1), (41.0, 1),           # printed ">40" [M]
 ])
 def test_grading_over_ambient_band_edges(table, amb_k, priority):
     g = findings.grade_electrical(None, amb_k, table)   # from memory (NETA MTS 100.18), see above
@@ -302,7 +314,7 @@ def _raw():
 
 def test_load_severity_table_rejects_bad_tables():
     bad = _raw()
-    bad["bands"][0]["rise_over_reference_k"] = [1, 4]          # overlaps the next band [3, 15)
+    bad["bands"][0]["rise_over_reference_k"] = [1, 4]          # overlaps the next band [3, 15]
     with pytest.raises(ValueError, match=r"rise_over_reference_k.*does not end where.*must be contiguous"):
         findings.load_severity_table(bad)
     bad = _raw()

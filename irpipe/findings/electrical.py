@@ -32,8 +32,9 @@ _TABLE_KEYS = ("source", "note", "bands")
 
 @dataclass(frozen=True)
 class SeverityBand:
-    """One row of an electrical severity table; ranges are [lower, upper) in K,
-    upper None for unbounded, the whole criterion None when the row has none."""
+    """One row of an electrical severity table; ranges are (lower, upper] in K (the
+    lowest range of a criterion also holds its lower limit), upper None for
+    unbounded, the whole criterion None when the row has none."""
 
     priority: int
     label: str
@@ -75,8 +76,9 @@ def load_severity_table(mapping):
         ``note`` (non-empty strings) and ``bands``, a list of rows with
         ``priority`` (int >= 1, 1 most severe), ``label``, ``action`` (strings),
         ``rise_over_reference_k`` and ``rise_over_ambient_k`` (each
-        ``[lower, upper]`` in K, read as the half-open range [lower, upper),
-        ``upper: null`` for no limit, or ``null`` when the row has no such band).
+        ``[lower, upper]`` in K, read as lower < rise <= upper (the lowest range
+        of a criterion also holds its lower limit), ``upper: null`` for no
+        limit, or ``null`` when the row has no such band).
 
     Returns
     -------
@@ -92,9 +94,11 @@ def load_severity_table(mapping):
 
     Notes
     -----
-    Ranges are upper-exclusive, so a printed integer band "4-15" is written
-    [4, 16): a reading is graded by its whole-kelvin part (15.9 K is in the
-    4-15 band, 16.0 K is above it).
+    The printed integer bands "1-3 / 4-15 / >15" are written [1, 3], [3, 15],
+    [15, null]: a reading equal to a printed upper limit belongs to the band
+    that prints it (3.0 K is in the 1-3 band, 15.0 K in the 4-15 band), and a
+    reading between two printed bands goes to the more severe one (3.5 K is in
+    the 4-15 band, 15.5 K in the >15 band).
     """
     if not isinstance(mapping, dict):
         raise ValueError(f"severity table: expected a mapping with keys {list(_TABLE_KEYS)}, "
@@ -144,10 +148,10 @@ def load_severity_table(mapping):
             (lo_a, hi_a), (lo_b, _) = getattr(a, crit), getattr(b, crit)
             if hi_a is None or hi_a != lo_b:
                 raise ValueError(
-                    f"severity table, {crit}: the range [{lo_a:g}, {hi_a}) of priority {a.priority} "
+                    f"severity table, {crit}: the range [{lo_a:g}, {hi_a}] of priority {a.priority} "
                     f"does not end where priority {b.priority}'s starts ({lo_b:g}); ranges are "
-                    f"[lower, upper) in kelvin and must be contiguous -- a printed band '4-15' is "
-                    f"written [4, 16]")
+                    f"[lower, upper] in kelvin and must be contiguous -- printed bands "
+                    f"'1-3 / 4-15 / >15' are written [1, 3], [3, 15], [15, null]")
             if b.priority >= a.priority:
                 raise ValueError(
                     f"severity table, {crit}: priority {b.priority} covers larger rises than "
@@ -192,8 +196,11 @@ def grade_electrical(rise_over_reference_k, rise_over_ambient_k, table):
 
     Notes
     -----
-    A rise r is in a row's range when lower <= r < upper. The result is the
-    row with the smallest priority number over both criteria. Rises measured
+    A rise r is in a row's range when lower < r <= upper, or lower <= r for the
+    lowest range of a criterion: a reading equal to a printed band limit
+    belongs to the band that prints it, and a reading between two printed
+    integer bands goes to the more severe one. The result is the row with the
+    smallest priority number over both criteria. Rises measured
     at partial load should first be scaled with :func:`load_scaled_rise`.
     The default table's bands are those commonly reproduced from [1] (from
     memory; verify against the current edition); prefer equipment maximum
@@ -215,9 +222,13 @@ def grade_electrical(rise_over_reference_k, rise_over_ambient_k, table):
     for crit, r in rises.items():
         if r is None:
             continue
-        for band in table.bands:
-            rng = getattr(band, crit)
-            if rng is not None and rng[0] <= r and (rng[1] is None or r < rng[1]):
+        ranges = [getattr(band, crit) for band in table.bands]
+        lowest = min(rng[0] for rng in ranges if rng is not None)
+        for band, rng in zip(table.bands, ranges):
+            if rng is None:
+                continue
+            above_lower = r > rng[0] or (rng[0] == lowest and r == lowest)
+            if above_lower and (rng[1] is None or r <= rng[1]):
                 hits[crit] = band
                 break
     if not hits:
