@@ -19,7 +19,7 @@ K0 = 273.15
 
 def dusk_wall(rows=64, cols=96):
     """Brick, timber, glass and a weathered galvanised gutter (emissivities from the
-    dossier REFERENCES.md section 8; gutter 0.28 as in the brief's hidden scene)."""
+    docs/references.md §8; gutter 0.28 as in the brief's hidden scene)."""
     t = np.full((rows, cols), 3.0)
     lab = np.ones((rows, cols), np.uint8)
     t[20:44, 10:40], lab[20:44, 10:40] = 4.5, 2          # timber
@@ -68,7 +68,7 @@ def test_dusk_wall_flat_path(tmp_path, mode):
         raw = np.rint((tapp - 200.0) / 0.01)[None].repeat(frames, 0).astype(np.uint16)
         camera = "  spectral_band_um: [7.5, 14.0]\n  input: apparent_temperature\n  raw_scale: 0.01\n  raw_offset: 200.0"
     else:
-        # Sakuma-Hattori coefficients fitted to this band (REFERENCES.md section 2 procedure);
+        # Sakuma-Hattori coefficients fitted to this band (docs/references.md §2 procedure);
         # counts = S-H(T_app) + offset, with T_app the blackbody-equivalent of the band radiance
         a, b, c = 9.2868e-6, 1.8868e-4, 1.5e6
         tapp = cam.apparent(l)

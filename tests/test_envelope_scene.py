@@ -3,7 +3,7 @@
 Truth: f_Rsi = (theta_si,min - theta_e)/(theta_i - theta_e) (ISO 13788:2012 / ISO 10211:2017);
 mould risk at surface RH >= 80 % and condensation at or below the dew point (ISO 13788);
 indoor 20 C / 60 % RH, outdoor 0 C: theta_si for 80 % surface RH is 15.43 C and the dew point
-12.00 C (REFERENCES.md section 6, AERK formula). Scene from tests/forward_model.py."""
+12.00 C (docs/references.md §6, AERK formula). Scene from tests/forward_model.py."""
 import json
 
 import numpy as np
@@ -51,7 +51,7 @@ def test_interior_wall_corner_reveal(tmp_path):
         assert reg[name]["temperature_factor"] == pytest.approx(f_true, abs=0.012), name   # brief tolerance
         assert reg[name]["mould_risk"] is mould, name
         assert reg[name]["condensation_risk"] is cond, name
-    assert rep["survey"]["indoor_dew_point_c"] == pytest.approx(12.00, abs=0.01)   # REFERENCES.md section 6
+    assert rep["survey"]["indoor_dew_point_c"] == pytest.approx(12.00, abs=0.01)   # docs/references.md §6
     assert rep["warnings"] == []          # 20 K difference: no survey-condition warning
 
 

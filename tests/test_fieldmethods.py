@@ -41,10 +41,10 @@ def _counts(l, rng=None, noise=0.0):
     return np.rint(x).astype(np.uint16)
 
 
-# --- Fresnel (REFERENCES.md section 8) --------------------------------------------------
+# --- Fresnel (docs/references.md §8) --------------------------------------------------
 
 @pytest.mark.parametrize("n, angle, expected", [
-    # REFERENCES.md section 8 [C]: illustrative values computed from the Fresnel equations
+    # docs/references.md §8 [C]: illustrative values computed from the Fresnel equations
     # (Born & Wolf, Principles of Optics, sect. 1.5), rounded to 4 decimals
     (1.5, 0, 0.9600), (1.5, 45, 0.9498), (1.5, 60, 0.9108), (1.5, 70, 0.8290), (1.5, 75, 0.7469),
     (1.5, 80, 0.6123), (1.5, 85, 0.3872),
@@ -60,7 +60,7 @@ def test_oblique_factor_normal_and_monotone():
     assert float(oblique_factor(0.0)) == 1.0
     f = oblique_factor(np.arange(0, 90, 5.0))
     assert np.all(np.diff(f) < 0)
-    assert float(oblique_factor(75.0)) == pytest.approx(0.7469 / 0.9600, abs=1e-4)   # REFERENCES.md section 8
+    assert float(oblique_factor(75.0)) == pytest.approx(0.7469 / 0.9600, abs=1e-4)   # docs/references.md §8
 
 
 def test_view_angles_label_field():
