@@ -16,6 +16,13 @@ def test_sakuma_hattori_round_trip():
     assert np.max(np.abs(sakuma_hattori_temperature(sakuma_hattori_signal(t, a, b, c), a, b, c) - t)) < 1e-9
 
 
+def test_scene_side_sakuma_hattori_matches_the_dossier():
+    # the equation the end-to-end scenes use (tests/forward_model.py, written apart from irpipe)
+    # reproduces docs/references.md §2 [C]: A = 9 um, B = 600 um K, C = 1e7 -> S(300 K) = 1.29447071e5
+    from forward_model import sakuma_hattori
+    assert sakuma_hattori(300.0, 9e-6, 600e-6, 1e7) == pytest.approx(1.29447071e5, rel=1e-8)
+
+
 def test_sakuma_hattori_derivative():
     # closed-form dS/dT (CCT-WG5 2008 / Wikipedia "Sakuma-Hattori equation") vs central difference
     a, b, c = 9.3e-6, 180e-6, 7e3

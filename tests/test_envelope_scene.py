@@ -16,7 +16,7 @@ from irpipe.pipeline import run
 K0 = 273.15
 
 
-def test_interior_wall_corner_reveal(tmp_path):
+def test_interior_wall_corner_reveal(tmp_path, camera_yaml):
     rows, cols = 80, 120
     r, c = np.mgrid[0:rows, 0:cols]
     t = np.full((rows, cols), 18.4)                                # plain wall, f = 0.92
@@ -36,7 +36,7 @@ def test_interior_wall_corner_reveal(tmp_path):
     cfg = tmp_path / "c.yaml"
     cfg.write_text(
         "survey: {indoor_air_c: 20, outdoor_air_c: 0, indoor_relative_humidity_pct: 60}\n"
-        "camera: {spectral_band_um: [7.5, 14], calibration: {model: linear, gain: 300, offset_counts: 1000}}\n"
+        f"camera: {camera_yaml}\n"
         "conditions: {emissivity: 0.92, reflected_temperature_c: 19, air_temperature_c: 20, distance_m: 0}\n"
         "stacks:\n  - name: room\n    path: room.tif\n    regions:\n"
         "      - {name: wall, rect: [10, 5, 70, 45]}\n"
@@ -55,11 +55,11 @@ def test_interior_wall_corner_reveal(tmp_path):
     assert rep["warnings"] == []          # 20 K difference: no survey-condition warning
 
 
-def test_small_difference_warns(tmp_path):
+def test_small_difference_warns(tmp_path, camera_yaml):
     tifffile.imwrite(tmp_path / "s.tif", np.full((1, 8, 8), 20000, np.uint16))
     cfg = tmp_path / "c.yaml"
     cfg.write_text("survey: {indoor_air_c: 20, outdoor_air_c: 14}\n"
-                   "camera: {spectral_band_um: [7.5, 14], calibration: {model: linear, gain: 300, offset_counts: 1000}}\n"
+                   f"camera: {camera_yaml}\n"
                    "conditions: {emissivity: 0.92, reflected_temperature_c: 19, air_temperature_c: 20}\n"
                    "stacks: [{name: s, path: s.tif, regions: [{name: w, rect: [0, 0, 8, 8]}]}]\n")
     res = run(cfg, tmp_path / "o")

@@ -99,7 +99,9 @@ def test_gum_against_monte_carlo(band_8_14, label, t_c, eps, expected_u):
     mc = monte_carlo_uncertainty(s, eps, refl, air, 0.85, 9.0, u, models, trials=200_000, seed=7)
     # JCGM 101:2008 Sect. 8 validates the GUM result against MC; the brief asks for 10 %
     assert uc == pytest.approx(mc.std[0], rel=0.10), f"{label}: GUM {uc:.3f} K, MC {mc.std[0]:.3f} K"
-    assert 2 * uc == pytest.approx(expected_u, rel=0.25)     # brief's rounded figures
+    # the brief's figures (0.7 K, 14 K), rounded to one and two significant digits: within
+    # 10 %, what GUM vs Monte Carlo supports here (above)
+    assert 2 * uc == pytest.approx(expected_u, rel=0.10), f"{label}: U = {2 * uc:.3f} K"   # 0.760, 13.27 K
 
 
 def test_vectorised_matches_scalar(band_8_14):
@@ -171,7 +173,7 @@ def _independent_mc(cam, grid, band, t_c, eps, n=60_000, seed=11):
 
 
 @pytest.fixture(scope="module")
-def e2e(tmp_path_factory):
+def e2e(tmp_path_factory, camera_yaml):
     tmp = tmp_path_factory.mktemp("unc")
     cam = Camera(7.5, 14.0)
     t, lab, eps, regions = _scene()
@@ -186,7 +188,7 @@ def e2e(tmp_path_factory):
     for plan, emiss in (("lookup", "{labels: labels.tif, values: {1: 0.93, 2: 0.28}}"), ("per-pixel", "{map: emap.tif}")):
         cfg = tmp / f"{plan}.yaml"
         cfg.write_text(f"""
-camera: {{spectral_band_um: [7.5, 14.0], input: counts, calibration: {{model: linear, gain: 300.0, offset_counts: 1000.0}}}}
+camera: {camera_yaml}
 conditions:
   emissivity: {emiss}
   reflected_temperature_c: {T_REFL_C}
@@ -224,8 +226,9 @@ def test_end_to_end_uncertainty(e2e, plan):
     by = {r["name"]: r for r in st["regions"]}
     for name in regions:
         r = by[name]
-        # brief: per-region figures consistent with an independent Monte Carlo within 15 %
-        assert r["expanded_uncertainty_k"] == pytest.approx(mc[name], rel=0.15), (name, r, mc[name])
+        # per-region figures consistent with an independent Monte Carlo (JCGM 101:2008, written
+        # in this file on tests/forward_model.py) within 10 %, as GUM vs MC above
+        assert r["expanded_uncertainty_k"] == pytest.approx(mc[name], rel=0.10), (name, r, mc[name])
         assert r["coverage_factor"] == 2
         # forced flat transmittance: RH and distance cannot change the path (measurement equation)
         assert r["uncertainty_budget_k"]["relative_humidity_pct"] == 0
@@ -245,13 +248,13 @@ def test_plans_agree(e2e):
     assert np.nanmax(np.abs(a - b) / a) < 1e-3
 
 
-def test_stage_only_with_nonzero_section(tmp_path):
+def test_stage_only_with_nonzero_section(tmp_path, linear_camera):
     from irpipe.config import load_config
     from irpipe.pipeline import plan
     from irpipe.stages import build_chain
 
     tifffile.imwrite(tmp_path / "s.tif", np.full((1, 8, 8), 20000, np.uint16), photometric="minisblack")
-    base = ("camera: {spectral_band_um: [8, 14], calibration: {model: linear, gain: 300, offset_counts: 1000}}\n"
+    base = (f"camera: {linear_camera((8, 14))}\n"
             "conditions: {emissivity: 0.9, reflected_temperature_c: 10, air_temperature_c: 10}\n"
             "stacks: [{name: s, path: s.tif}]\n")
     for extra, expected in (("", False), ("uncertainty: {emissivity: 0, camera_k: 0}\n", False),
