@@ -9,7 +9,7 @@ import tifffile
 
 from irpipe import parallel, pipeline
 from irpipe.config import load_config
-from irpipe.io import StackReader, StackWriter
+from irpipe.io import StackReader
 
 
 def _stack_report(res):
@@ -176,37 +176,6 @@ def test_stream_chain_keeps_frame_order_in_every_stage():
     for s in stages:
         assert s.firsts == list(range(0, 300, 3))
     assert done == list(range(3, 301, 3))
-
-
-def test_reader_fast_path_and_fallbacks_agree(tmp_path):
-    rng = np.random.default_rng(2)
-    data = rng.integers(0, 65535, (9, 7, 5)).astype(np.uint16)
-    tifffile.imwrite(tmp_path / "contig.tif", data, photometric="minisblack")
-    tifffile.imwrite(tmp_path / "zlib.tif", data, photometric="minisblack", compression="zlib")
-    with tifffile.TiffWriter(tmp_path / "pages.tif") as tw:      # IFDs between the pages
-        for f in data:
-            tw.write(f, contiguous=False, photometric="minisblack")
-    with tifffile.TiffWriter(tmp_path / "big.tif", byteorder=">") as tw:
-        tw.write(data, photometric="minisblack")
-    for name, fast in (("contig", True), ("zlib", False), ("pages", True), ("big", False)):
-        with StackReader(tmp_path / f"{name}.tif") as r:
-            assert r.shape == data.shape
-            np.testing.assert_array_equal(r.read(0, 9), data)
-            np.testing.assert_array_equal(r.read(2, 7), data[2:7])
-            assert (r._page_offsets() is not None) == fast, name
-
-
-def test_writer_chunks_make_one_series(tmp_path):
-    a = np.random.default_rng(3).normal(size=(11, 6, 8)).astype(np.float32)
-    w = StackWriter(tmp_path / "t.tif", a.shape, '{"units": "degC"}')
-    for s in range(0, 11, 4):
-        w.write(a[s:s + 4])
-    w.commit()
-    with tifffile.TiffFile(tmp_path / "t.tif") as t:
-        assert len(t.series) == 1 and t.series[0].shape == a.shape
-        assert t.pages[0].description == '{"units": "degC"}'
-        np.testing.assert_array_equal(t.asarray(), a)
-    assert [p.name for p in tmp_path.iterdir()] == ["t.tif"]
 
 
 def test_picture_histogram_from_table_counts_equals_binning_pixels(survey, tmp_path):
