@@ -20,7 +20,7 @@ from .errors import ConfigError, InputDataError
 from .io import StackReader, read_map, read_spectral_response
 from .radiometry import SpectralResponse
 from .regions import geometry_problem, region_mask
-from .stages.base import StackContext
+from .context import StackContext
 
 
 # --- shared survey-level objects ------------------------------------------------------

@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 import tifffile
 
-from irpipe import parallel, pipeline
+from irpipe import parallel, pipeline, runner
 from irpipe.config import load_config
 from irpipe.io import StackReader, StackWriter
 
@@ -167,7 +167,7 @@ def test_lazy_graph_computes_nothing_until_asked(survey):
     chain = build_chain(ctx)
     for s in chain[:2]:
         s.start(ctx)
-    rad = chain[[s.name for s in chain].index("radiometric")]
+    tables = ctx.tables
 
     class Count(Callback):
         n = 0
@@ -177,7 +177,7 @@ def test_lazy_graph_computes_nothing_until_asked(survey):
 
     with Count():
         raw = parallel.lazy_stack(ctx.stack["path"], ctx.shape, ctx.dtype, 5)
-        t, side = parallel.lazy_temperature(raw, parallel.PixelKernel([], rad))
+        t, side = parallel.lazy_temperature(raw, tables)
         assert t.dims == ("frame", "row", "col") and t.chunks[0] == (5, 5, 5, 5, 3)
         assert t.attrs["units"] == "degC"
         assert Count.n == 0                        # building the graph ran no task
@@ -185,7 +185,7 @@ def test_lazy_graph_computes_nothing_until_asked(survey):
         assert Count.n > 0
     with StackReader(ctx.stack["path"]) as r:
         raw_np = r.read(5, 10)
-    want = rad.lut_flat.take(np.add(raw_np, rad.offsets, dtype=np.int64) if rad.offsets is not None else raw_np)
+    want = tables.lut_c.ravel().take(tables.index_of(raw_np))
     np.testing.assert_array_equal(block.values, want)
 
 
@@ -215,7 +215,7 @@ def test_stream_chain_reraises_a_stage_error_after_stopping_threads():
     seen = Seen()
     chunks = (Chunk(k, np.zeros((2, 2, 2))) for k in range(0, 20, 2))
     with pytest.raises(RuntimeError, match="boom at 6"):
-        parallel.stream_chain([Boom(), seen], Ctx(), chunks)
+        runner.stream_chain([Boom(), seen], Ctx(), chunks)
     assert seen.firsts == [0, 2, 4]                # in order, nothing after the failure
 
 
@@ -228,7 +228,6 @@ def test_stream_chain_keeps_frame_order_in_every_stage():
 
         def process(self, chunk, ctx):
             self.firsts.append(chunk.first)
-            chunk.extras[self.name] = True
 
     class Ctx:
         shape = (300, 1, 1)
@@ -236,7 +235,7 @@ def test_stream_chain_keeps_frame_order_in_every_stage():
 
     stages = [Rec(f"s{k}") for k in range(5)]
     done = []
-    parallel.stream_chain(stages, Ctx(), (Chunk(k, np.zeros((3, 1, 1))) for k in range(0, 300, 3)),
+    runner.stream_chain(stages, Ctx(), (Chunk(k, np.zeros((3, 1, 1))) for k in range(0, 300, 3)),
                           progress=lambda name, d, n: done.append(d))
     for s in stages:
         assert s.firsts == list(range(0, 300, 3))
@@ -282,7 +281,7 @@ def test_picture_histogram_from_table_counts_equals_binning_pixels(survey, tmp_p
     _, _, ctxs = pipeline.plan(c, tmp_path, {"frame_chunk": 5, "formats": ["tiff"]})
     rep = pipeline.run_stack(ctxs[0])
     assert rep["plan"] == "lookup"
-    got = ctxs[0].shared["picture"]
+    got = ctxs[0].picture.as_dict()
     want = picture_from_tiff(tmp_path / "wall.temperature.tif")
     np.testing.assert_array_equal(got["hist_counts"], want["hist_counts"])
     np.testing.assert_array_equal(got["hist_edges_c"], want["hist_edges_c"])
