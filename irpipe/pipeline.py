@@ -242,7 +242,12 @@ def run(config_path, out_dir=None, *, resume=False, keep_going=False, quiet=True
 
     n_run = sum(1 for k, _, _ in todo if k == "run")
     jobs = max(1, int(jobs or 1))
-    if jobs > 1 and n_run > 1 and not (workers or scheduler):
+    if scheduler and n_run > 1:
+        # a survey of many stacks on a cluster: whole stacks are the unit of work; the
+        # workers read the inputs and write into the (shared) output folder
+        _run_jobs(cfg, todo, out, dict(options, scheduler=None, workers=None), jobs, draw, settle, settle_other,
+                  quiet, scheduler=scheduler)
+    elif jobs > 1 and n_run > 1 and not (workers or scheduler):
         _run_jobs(cfg, todo, out, options, jobs, draw, settle, settle_other, quiet)
     else:
         progress = _progress(quiet)
@@ -263,9 +268,10 @@ def run(config_path, out_dir=None, *, resume=False, keep_going=False, quiet=True
     return RunResult(report, failed, skipped, out)
 
 
-def _run_jobs(cfg, todo, out, options, jobs, draw, settle, settle_other, quiet):
-    """Run the stacks of ``todo`` in ``jobs`` processes; settle them in config order and
-    move each stack's outputs from its staging folder into ``out`` as it is settled."""
+def _run_jobs(cfg, todo, out, options, jobs, draw, settle, settle_other, quiet, scheduler=None):
+    """Run the stacks of ``todo`` in ``jobs`` processes (or on the workers of the dask
+    cluster at ``scheduler``); settle them in config order and move each stack's outputs
+    from its staging folder into ``out`` as it is settled."""
     import multiprocessing
     import shutil
     import tempfile
@@ -278,13 +284,21 @@ def _run_jobs(cfg, todo, out, options, jobs, draw, settle, settle_other, quiet):
     if not quiet and sys.stderr.isatty():
         from tqdm import tqdm
         bar = tqdm(total=sum(1 for k, _, _ in todo if k == "run"), desc="stacks", unit="stack", file=sys.stderr)
-    pool = ProcessPoolExecutor(max_workers=jobs, mp_context=ctx)
+    if scheduler:
+        try:
+            from distributed import Client
+        except ImportError as exc:
+            raise InputDataError(f"--scheduler needs dask.distributed ({exc}); install irpipe[cluster]") from None
+        pool = Client(scheduler, set_as_default=False)
+    else:
+        pool = ProcessPoolExecutor(max_workers=jobs, mp_context=ctx)
     try:
         futures = {}
         for kind, i, _ in todo:
             if kind == "run":
                 opts = {k: v for k, v in options.items()}
-                futures[i] = pool.submit(_job, str(cfg.path), i, str(stage_root / str(i)), opts, draw)
+                futures[i] = pool.submit(_job, str(cfg.path.resolve()), i, str(stage_root.resolve() / str(i)), opts,
+                                         draw, **({"pure": False} if scheduler else {}))
         for kind, i, extra in todo:
             if kind != "run":
                 settle_other(kind, i, extra)
@@ -307,7 +321,10 @@ def _run_jobs(cfg, todo, out, options, jobs, draw, settle, settle_other, quiet):
                     fut.cancel()
                 raise
     finally:
-        pool.shutdown(wait=True, cancel_futures=True)
+        if scheduler:
+            pool.close()
+        else:
+            pool.shutdown(wait=True, cancel_futures=True)
         if bar is not None:
             bar.close()
         shutil.rmtree(stage_root, ignore_errors=True)

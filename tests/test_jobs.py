@@ -92,3 +92,20 @@ def test_jobs_and_workers_exclude_each_other(tmp_path, capsys):
     assert main(["run", str(cfg), "--jobs", "2", "--workers", "2"]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and "--jobs" in err[0] and "--workers" in err[0]
+
+
+def test_a_survey_on_a_cluster_runs_whole_stacks_with_serial_outputs(tmp_path):
+    """--scheduler with many stacks: whole stacks go to the cluster's workers, which write
+    through the shared output folder; the outputs are the serial run's (LocalCluster)."""
+    distributed = pytest.importorskip("distributed")
+    cfg = _survey(tmp_path, n=3)
+    assert main(["run", str(cfg), "--out", str(tmp_path / "one"), "--jobs", "1", "--quiet"]) == 0
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None) as lc:
+        assert main(["run", str(cfg), "--out", str(tmp_path / "cl"), "--scheduler", lc.scheduler_address,
+                     "--quiet"]) == 0
+    for name in sorted(p.name for p in (tmp_path / "one").iterdir()):
+        x, y = (tmp_path / "one" / name).read_bytes(), (tmp_path / "cl" / name).read_bytes()
+        if name.endswith(".json"):
+            assert _strip(json.loads(x)) == _strip(json.loads(y)), name
+        elif name != "report.html":
+            assert x == y, name
