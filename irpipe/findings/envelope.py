@@ -12,6 +12,7 @@ import numpy as np
 
 from .. import humidity
 from ..constants import ZERO_CELSIUS
+from ..defaults import CRITICAL_TEMPERATURE_FACTORS as _CRITICAL_BY_USE
 from ._common import _out
 
 __all__ = [
@@ -25,21 +26,10 @@ __all__ = [
 ]
 
 #: Critical temperature factor f_CRsi by building use, UK practice (BRE IP1/06,
-#: Ward 2006; conventions in BR 497). Given from memory; the 0.75 for dwellings
-#: is corroborated by several practice pages. Verify against IP1/06 before use.
-CRITICAL_TEMPERATURE_FACTORS = {
-    "storage": 0.30,
-    "office": 0.50,
-    "retail": 0.50,
-    "dwelling": 0.75,
-    "residential": 0.75,
-    "school": 0.75,
-    "sports_hall": 0.80,
-    "kitchen": 0.80,
-    "unflued_gas_heating": 0.80,
-    "swimming_pool": 0.90,
-    "laundry": 0.90,
-}
+#: Ward 2006; conventions in BR 497; from memory): the table of
+#: ``irpipe.defaults.CRITICAL_TEMPERATURE_FACTORS``, keyed here with underscores
+#: ("sports_hall") where the config spells "sports-hall".
+CRITICAL_TEMPERATURE_FACTORS = {k.replace("-", "_"): v for k, v in _CRITICAL_BY_USE.items()}
 
 #: Surface relative humidity at or above which mould growth is assumed possible
 #: [fraction] (ISO 13788:2012 criterion; clause from memory).
