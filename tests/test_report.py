@@ -30,9 +30,9 @@ _DEMO = {}
 
 def demo_run(base: Path):
     """Write and process the demo survey once per session; returns (report, pictures,
-    out_dir). ``pictures`` are the picture stages' data with the region masks (what
-    irpipe.report.write_all encodes); the report is written as pipeline.write_reports
-    writes it."""
+    out_dir). ``pictures`` are the picture stages' data with the region masks, kept
+    while the pipeline runs (what irpipe.report.write_all encodes); the report is written
+    as pipeline.write_reports writes it."""
     if "run" in _DEMO:
         return _DEMO["run"]
     import irpipe.pipeline as pipeline
@@ -44,18 +44,29 @@ def demo_run(base: Path):
     captured = {}
     original = pipeline.write_reports
 
-    def capture(out_dir, report, contexts, pictures=True):
-        original(out_dir, report, contexts, pictures=False)
-        captured["pictures"] = {c.name: {**c.shared["picture"], "masks": dict(c.masks)} for c in contexts
-                                if not isinstance(c, tuple) and "picture" in c.shared}
+    def capture(out_dir, report, pictures, draw=True):
+        original(out_dir, report, pictures, draw=False)
+        captured["encoded"] = pictures
+
+    raw = {}
+    original_picture = pipeline._report_picture
+
+    def keep(ctx, out_dir, outputs):
+        if ctx.picture is not None:
+            raw[ctx.name] = {**ctx.picture.as_dict(), "masks": dict(ctx.masks)}
+        return original_picture(ctx, out_dir, outputs)
+
+    pipeline._report_picture = keep
 
     pipeline.write_reports = capture
     try:
         res = pipeline.run(cfg, out)
     finally:
         pipeline.write_reports = original
+        pipeline._report_picture = original_picture
     assert not res.failed, res.failed
-    pictures = captured["pictures"]
+    assert set(captured["encoded"]) == set(raw)         # the pipeline handed every picture on
+    pictures = raw
     rp.write_all(out, res.report, pictures)
     _DEMO["run"] = (res.report, pictures, out)
     return _DEMO["run"]

@@ -290,9 +290,11 @@ def test_resume_reuses_the_pictures_without_reading_the_stacks(tmp_path, monkeyp
     def strip(t):
         return re.sub(r"created[^<]*", "", re.sub(r"<dd>[0-9T:+-]{19,}</dd>", "", t))
     assert strip(again) == strip(first)
-    # an output changed since: its cached pictures are not used, the stack is read back
-    f = next(out.glob("*.temperature.tif"))
-    f.touch()
+    # pictures kept for another report entry are not used: that stack is read back
+    f = sorted((out / rp.CACHE_DIR).glob("*.json"))[0]
+    f.write_text(f.read_text().replace('"entry_key":"', '"entry_key":"0'))
+    name = next(st["name"] for st in res.report["stacks"] if f.name.startswith(st["name"]))
+    temperature = next(st["outputs"]["temperature"] for st in res.report["stacks"] if st["name"] == name)
 
     def read(path, chunk=16):
         calls.append(Path(path).name)
@@ -300,7 +302,8 @@ def test_resume_reuses_the_pictures_without_reading_the_stacks(tmp_path, monkeyp
 
     monkeypatch.setattr(rp, "picture_from_tiff", read)
     pipeline.run(cfg, out, resume=True)
-    assert calls == [f.name]
+    assert calls == [Path(temperature).name]
+    assert strip((out / "report.html").read_text(encoding="utf-8")) == strip(first)
 
 
 _picture_from_tiff = rp.picture_from_tiff

@@ -18,24 +18,26 @@ Two forms of report.html:
   ``report_pages/<safe name>.html`` (:func:`page_file_names`), linked both ways. Stack
   pages of an earlier run that this run does not write are removed.
 
-Pictures are meant to be encoded as soon as a stack is done (:func:`stack_pictures`), so
-that nothing but a few tens of kilobytes per stack waits for the report. Each stack's
-encoded pictures are also kept in ``.irpipe-pictures/`` in the output folder, keyed by the
-size and modification time of the stack's output files: a stack skipped by ``--resume``
-reuses them instead of re-reading its temperature stack.
+The pipeline encodes a stack's pictures as soon as the stack is done
+(:func:`stack_pictures`, also in a job process), so that nothing but a few tens of
+kilobytes per stack waits for the report. :func:`write_all` keeps each stack's encoded
+pictures in ``.irpipe-pictures/`` in the output folder, keyed by the stack's report entry
+(:func:`entry_key`; the same bytes whoever ran the stack): a stack skipped by
+``--resume`` reuses them instead of re-reading its temperature stack.
 """
 from __future__ import annotations
 
 import contextlib
 import hashlib
+import json
 import re
 from pathlib import Path
 
 from ..io import atomic_path, write_text_atomic
 from .tables import build_findings, findings_csv, region_rows, regions_csv
 
-__all__ = ["write_all", "build_findings", "region_rows", "pictures_from_contexts", "picture_from_tiff",
-           "stack_pictures", "page_file_names", "FILES", "PAGED_ABOVE_STACKS", "PAGES_DIR", "CACHE_DIR"]
+__all__ = ["write_all", "build_findings", "region_rows", "picture_from_tiff", "stack_pictures", "entry_key", "page_file_names",
+           "FILES", "PAGED_ABOVE_STACKS", "PAGES_DIR", "CACHE_DIR"]
 
 FILES = ("regions.csv", "findings.csv", "report.html")
 PAGED_ABOVE_STACKS = 50            # surveys with more stacks get an index page plus one page per stack
@@ -101,6 +103,7 @@ def write_all(out_dir: Path, report: dict, pictures: dict) -> list[str]:
         write_text_atomic(out_dir / rel, text)
     write_text_atomic(out_dir / "report.html", page)
     _remove_stale_pages(out_dir, set(pages))
+    _store_cache(out_dir, stacks, enc)
     _prune_cache(out_dir, [st.get("name") for st in stacks])
     return list(FILES) + list(pages)
 
@@ -135,17 +138,12 @@ def _prune_cache(out_dir, names):
                 p.unlink()
 
 
-def _outputs_key(out_dir, outputs):
-    """Name, size and modification time of each output file of a stack: the pictures of a
-    stack are valid as long as these are unchanged."""
-    key = []
-    for kind, f in sorted((outputs or {}).items()):
-        try:
-            s = (Path(out_dir) / f).stat()
-        except OSError:
-            return None
-        key.append([kind, str(f), s.st_size, s.st_mtime_ns])
-    return key or None
+def entry_key(entry):
+    """SHA-256 of a stack's report.json entry without its ``seconds``: the pictures of a
+    stack are those of this entry (same inputs, conditions, regions and software give the
+    same entry and the same pictures; ``--resume`` skips a stack on the same grounds)."""
+    blob = json.dumps({k: v for k, v in (entry or {}).items() if k != "seconds"}, sort_keys=True, default=str)
+    return hashlib.sha256(blob.encode()).hexdigest()
 
 
 def _load_cached(out_dir, name, key):
@@ -155,39 +153,49 @@ def _load_cached(out_dir, name, key):
         enc = loads(_cache_file(out_dir, name).read_text(encoding="utf-8"))
     except OSError:
         return None
-    if enc is None or enc.get("outputs_key") != key:
+    if enc is None or enc.get("entry_key") != key:
         return None
-    enc.pop("outputs_key", None)
-    return enc
+    return enc              # with its entry_key: write_all need not store it again
 
 
-def _store_cached(out_dir, name, enc, key):
+def _store_cache(out_dir, stacks, enc):
+    """Keep the encoded pictures of each done stack whose cached copy is missing or stale."""
     from .pictures import dumps
 
-    try:             # a cache: written atomically but without fsync, and never worth failing for
-        with atomic_path(_cache_file(out_dir, name), fsync=False) as tmp:
-            tmp.write_text(dumps({**enc, "outputs_key": key}), encoding="utf-8")
-    except OSError:
-        pass
+    for st in stacks:
+        e = enc.get(st.get("name"))
+        if e is None or st.get("status", "done") != "done":
+            continue
+        key = entry_key(st)
+        if e.get("entry_key") == key:
+            continue
+        try:         # a cache: written atomically but without fsync, and never worth failing for
+            with atomic_path(_cache_file(out_dir, st.get("name")), fsync=False) as tmp:
+                tmp.write_text(dumps({**e, "entry_key": key}), encoding="utf-8")
+        except OSError:
+            pass
 
 
-def stack_pictures(out_dir, name, outputs, picture=None, masks=None):
-    """The encoded pictures of one finished stack, and keep them for ``--resume``.
+def stack_pictures(out_dir, name, outputs, picture=None, masks=None, entry=None):
+    """The encoded pictures of one finished stack (small; what the report keeps of it).
 
     Parameters
     ----------
     out_dir : path
-        The output folder (the stack's outputs, and the ``.irpipe-pictures`` cache, in it).
+        The folder holding the stack's outputs (a job's staging folder is fine).
     name : str
         Stack name.
     outputs : dict
         The stack's ``outputs`` entry of report.json (file names relative to ``out_dir``).
     picture : dict, optional
         The picture stage's data of a stack processed in this run; without it (a stack
-        skipped by ``--resume``) the cached pictures are used if the outputs are unchanged,
-        else the picture is read back from the temperature stack.
+        skipped by ``--resume``) the pictures kept in ``.irpipe-pictures/`` for the
+        stack's report entry ``entry`` are used, else the picture is read back from its
+        temperature stack.
     masks : dict, optional
         Region masks, {name: (M, N) bool}.
+    entry : dict, optional
+        The stack's report.json entry (of the earlier run, for a skipped stack).
 
     Returns
     -------
@@ -197,9 +205,8 @@ def stack_pictures(out_dir, name, outputs, picture=None, masks=None):
     """
     from .pictures import render_stack_pictures
 
-    key = _outputs_key(out_dir, outputs) if out_dir is not None else None
-    if picture is None and key is not None:
-        enc = _load_cached(out_dir, name, key)
+    if picture is None and out_dir is not None:
+        enc = _load_cached(out_dir, name, entry_key(entry)) if entry is not None else None
         if enc is not None:
             return enc
         f = (outputs or {}).get("temperature")
@@ -210,25 +217,21 @@ def stack_pictures(out_dir, name, outputs, picture=None, masks=None):
                 picture = None
     if picture is None:
         return None
-    enc = render_stack_pictures(picture, masks)
-    if key is not None:
-        _store_cached(out_dir, name, enc, key)
-    return enc
+    return render_stack_pictures(picture, masks)
 
 
 def picture_from_tiff(path, chunk=16):
     """A picture dict (without masks) from a written ``<stack>.temperature.tif``, streamed
-    in chunks of frames; same binning as the picture stage."""
+    in chunks of frames; same binning as the picture stage (``irpipe.regions.picture_bins``)."""
     import numpy as np
 
     from ..io import StackReader
-    from ..stages.picture import HIST_HI_C, HIST_LO_C, HIST_STEP
+    from ..regions import PICTURE_BINS, histogram_extent, picture_bins
 
-    nb = int(round((HIST_HI_C - HIST_LO_C) / HIST_STEP))
     with StackReader(path, "temperature stack") as r:
         total = np.zeros(r.shape[1:], np.float64)
         cnt = np.zeros(r.shape[1:], np.int64)
-        hist = np.zeros(nb, np.int64)
+        hist = np.zeros(PICTURE_BINS, np.int64)
         first = None
         for _, t in r.chunks(chunk):
             t = t.astype(np.float32, copy=False)
@@ -237,29 +240,8 @@ def picture_from_tiff(path, chunk=16):
             cnt += ok.sum(0)
             if first is None:
                 first = t[0].copy()
-            b = np.clip(((t[ok] - HIST_LO_C) / HIST_STEP).astype(np.int64), 0, nb - 1)
-            hist += np.bincount(b, minlength=nb)
+            hist += np.bincount(picture_bins(t[ok]), minlength=PICTURE_BINS)
     with np.errstate(invalid="ignore", divide="ignore"):
         mean = np.where(cnt > 0, total / np.maximum(cnt, 1), np.nan).astype(np.float32)
-    nz = np.flatnonzero(hist)
-    return {"mean_c": mean, "first_c": first,
-            "hist_edges_c": (HIST_LO_C + HIST_STEP * np.arange(nz[0], nz[-1] + 2)) if nz.size else np.array([]),
-            "hist_counts": hist[nz[0]:nz[-1] + 1] if nz.size else np.array([], np.int64)}
-
-
-def pictures_from_contexts(contexts, report=None, out_dir=None) -> dict:
-    """Encoded ``pictures`` for :func:`write_all` from the pipeline's stack contexts.
-
-    ``contexts`` is the list from ``pipeline.plan`` (failed entries, tuples, are ignored).
-    A context without a picture (stack skipped by ``--resume``) gets its cached pictures,
-    or pictures read from its temperature stack in ``out_dir`` (:func:`stack_pictures`)."""
-    outputs = {s.get("name"): s.get("outputs") or {} for s in (report or {}).get("stacks", [])}
-    pics = {}
-    for ctx in contexts:
-        if isinstance(ctx, tuple):
-            continue
-        enc = stack_pictures(out_dir, ctx.name, outputs.get(ctx.name, {}), ctx.shared.get("picture"),
-                             dict(ctx.masks))
-        if enc is not None:
-            pics[ctx.name] = enc
-    return pics
+    edges, counts = histogram_extent(hist)
+    return {"mean_c": mean, "first_c": first, "hist_edges_c": edges, "hist_counts": counts}

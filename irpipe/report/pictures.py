@@ -130,8 +130,8 @@ def render_stack_pictures(picture, masks=None) -> dict:
     Parameters
     ----------
     picture : dict
-        The picture stage's ``mean_c`` (M, N) [C] (NaN invalid), ``hist_edges_c``,
-        ``hist_counts`` and optional ``hist_sampled_every_chunks``.
+        The picture stage's ``mean_c`` (M, N) [C] (NaN invalid), ``hist_edges_c`` and
+        ``hist_counts``.
     masks : dict of str to (M, N) bool, optional
         The stack's regions, outlined in the thermogram and named in the overlay.
 
@@ -142,7 +142,7 @@ def render_stack_pictures(picture, masks=None) -> dict:
         ``png_scale`` (the thermogram PNG's pixels per image pixel along each axis),
         ``invalid_px``,
         ``thermogram_png`` and ``thumbnail_png`` (PNG bytes), ``histogram_svg`` (text),
-        ``hist_sampled_every_chunks``, ``regions`` (name and top-left pixel of each
+        ``regions`` (name and top-left pixel of each
         outlined region) and ``schema``.
     """
     img = np.asarray(picture["mean_c"], np.float32)
@@ -156,7 +156,6 @@ def render_stack_pictures(picture, masks=None) -> dict:
             rr = np.flatnonzero(m.any(1))
             cc = np.flatnonzero(m.any(0))
             regions.append({"name": str(name), "row": int(rr[0]), "col": int(cc[0])})
-    every = int(picture.get("hist_sampled_every_chunks", 1) or 1)
     up = max(1, MIN_WIDTH // max(img.shape[1], 1))
     big, big_masks = img, masks
     if up > 1:
@@ -171,7 +170,6 @@ def render_stack_pictures(picture, masks=None) -> dict:
         "thermogram_png": encode_indexed(thermogram_indices(big, big_masks, rng, levels), pal),
         "thumbnail_png": encode_indexed(thumbnail(img, rng, levels), pal),
         "histogram_svg": histogram_svg(picture.get("hist_edges_c", []), picture.get("hist_counts", []), rng),
-        "hist_sampled_every_chunks": every,
         "regions": regions,
     }
 
