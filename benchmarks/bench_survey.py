@@ -80,7 +80,7 @@ def stack_conditions(k):
 
 
 def stack_name(k):
-    return f"room-{k // 4 + 1:03d}/view {k % 4 + 1}"      # slashes and spaces: safe page names needed
+    return f"room {k // 4 + 1:03d}: view {k % 4 + 1}"     # spaces and colons: safe page names needed
 
 
 def scene(k, rng):
