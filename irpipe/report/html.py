@@ -72,7 +72,7 @@ figure .tg img { width: 100%; border: none; image-rendering: pixelated; }
 svg.ov text.rl { fill: #fff; stroke: #000; paint-order: stroke; font-weight: 600; }
 svg.ov .mk circle { fill: #fff; fill-opacity: .92; stroke: #000; }
 svg.ov .mk text { text-anchor: middle; font-weight: 700; fill: #000; }
-.cbar { display: flex; gap: 3px; flex: 0 0 auto; padding: 4px 0; }
+.cbar { display: flex; gap: 3px; flex: 0 0 auto; }
 .cbar .ramp { width: 16px; border: 1px solid #555; background: RAMP; }
 .cbar .ticks { position: relative; width: 34px; font-size: 10.5px; font-variant-numeric: tabular-nums; }
 .cbar .ticks span { position: absolute; left: 0; transform: translateY(50%); white-space: nowrap; }
