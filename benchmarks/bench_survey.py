@@ -274,6 +274,7 @@ def main(argv=None):
         if not has_jobs_flag(env):
             ap.error("--jobs: this irpipe's 'run' has no --jobs option yet (see irpipe run --help)")
         jobs_args = ["--jobs", str(a.jobs)]
+    load_start = os.getloadavg()[0]       # other work on the machine skews every figure: record it
     folder = Path(tempfile.mkdtemp(prefix="irpipe-survey-"))
     try:
         t0 = time.perf_counter()
@@ -340,6 +341,7 @@ def main(argv=None):
             "report_pages": len(pages),
             "noisy_stacks": a.noisy_stacks, "noisy_noise_counts": NOISY_COUNTS,
             "chromium_ms": browser,
+            "load_average_1min": {"start": round(load_start, 2), "end": round(os.getloadavg()[0], 2)},
             "machine": {"cpus": os.cpu_count(), "python": platform.python_version(),
                         "numpy": np.__version__, "platform": platform.platform(terse=True)},
             "created_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
