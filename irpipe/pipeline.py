@@ -9,7 +9,6 @@ last, atomically.
 from __future__ import annotations
 
 import datetime as _dt
-import hashlib
 import json
 import sys
 import time
@@ -341,12 +340,8 @@ class RunResult:
 
 
 def _stack_fingerprint(cfg: Config, i: int, input_hashes: dict):
-    st = cfg.data["stacks"][i]
-    blob = json.dumps({"camera": merged_camera(cfg.data, i), "conditions": merged_conditions(cfg.data, i),
-                       "stack": st, "survey": cfg.data.get("survey", {}),
-                       "uncertainty": cfg.data.get("uncertainty", {}), "inputs": input_hashes,
-                       "version": __version__}, sort_keys=True, default=str)
-    return hashlib.sha256(blob.encode()).hexdigest()
+    from .fingerprint import stack_fingerprint
+    return stack_fingerprint(cfg, i, input_hashes)
 
 
 def _inputs_of(cfg: Config, i: int, cam=None):
@@ -456,7 +451,9 @@ def run(config_path, out_dir=None, *, resume=False, keep_going=False, quiet=True
         if pending is not None:
             hashes = pending.result()
             fp = _stack_fingerprint(cfg, ctx.index, hashes)
-        manifest["stacks"].append({"name": ctx.name, "status": "done", "fingerprint": fp, "inputs": hashes,
+        from .fingerprint import pixel_fingerprint
+        manifest["stacks"].append({"name": ctx.name, "status": "done", "fingerprint": fp,
+                                   "pixel_fingerprint": pixel_fingerprint(cfg, ctx.index, hashes), "inputs": hashes,
                                    "outputs": dict(ctx.outputs), "report": rep})
         results.append(rep)
     report = build_report(cfg, results)
