@@ -102,6 +102,13 @@ def _key_span(lines, knode, vnode):
     return span
 
 
+def _dash_col(lines, item):
+    """Column of the '- ' introducing a block-sequence item that starts its own line, else None."""
+    line = lines[item.start_mark.line][:item.start_mark.column]
+    m = re.fullmatch(r"( *)- +", line)
+    return len(m.group(1)) if m else None
+
+
 def yaml_spans(text):
     """Line spans of each stack's editable blocks in the survey text.
 
@@ -125,6 +132,13 @@ def yaml_spans(text):
         for k, v in item.value:
             if k.value in ("regions", "hotspots", "coldspots", "conditions"):
                 info["keys"][k.value] = _key_span(lines, k, v)
+            if k.value == "regions" and isinstance(v, yaml.SequenceNode) and not v.flow_style and v.value:
+                # each item's own lines, so that unchanged regions keep their text and comments
+                dash = [_dash_col(lines, it) for it in v.value]
+                if all(d is not None for d in dash) and len(set(dash)) == 1:
+                    info["keys"]["regions"]["dash_col"] = dash[0]
+                    info["keys"]["regions"]["items"] = [
+                        {"start": it.start_mark.line, "end": _end_line(it)} for it in v.value]
             if k.value == "conditions" and isinstance(v, yaml.MappingNode) and not v.flow_style:
                 for ck, cv in v.value:
                     if ck.value in ("emissivity", "reflected_temperature_c"):

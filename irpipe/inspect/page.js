@@ -82,18 +82,19 @@
     }
     return m;
   }
-  // point (x = col, y = row) against a polygon: vertices and outline count as inside
+  // point (x = col, y = row) against a polygon by crossing counts in both directions:
+  // inside, on a vertex (within 1e-12) or on the outline count as inside
+  // (J. O'Rourke, "Computational Geometry in C", 2nd ed., Cambridge University Press 1998, ch. 7)
   function inPolygon(xp, yp, x, y) {
-    var n = xp.length, c = false, j = n - 1;
+    var n = xp.length, rc = 0, lc = 0, x1 = xp[n - 1] - x, y1 = yp[n - 1] - y, eps = 1e-12;
     for (var i = 0; i < n; i++) {
-      if (x === xp[i] && y === yp[i]) return true;
-      var x0 = xp[j], y0 = yp[j], x1 = xp[i], y1 = yp[i];
-      if ((x - x0) * (y1 - y0) === (y - y0) * (x1 - x0) &&
-          x >= Math.min(x0, x1) && x <= Math.max(x0, x1) && y >= Math.min(y0, y1) && y <= Math.max(y0, y1)) return true;
-      if (((y1 > y) !== (y0 > y)) && (x < (x0 - x1) * (y - y1) / (y0 - y1) + x1)) c = !c;
-      j = i;
+      var x0 = xp[i] - x, y0 = yp[i] - y;
+      if (-eps < x0 && x0 < eps && -eps < y0 && y0 < eps) return true;
+      if ((y0 > 0) !== (y1 > 0) && (x0 * y1 - x1 * y0) / (y1 - y0) > 0) rc++;
+      if ((y0 < 0) !== (y1 < 0) && (x0 * y1 - x1 * y0) / (y1 - y0) < 0) lc++;
+      x1 = x0; y1 = y0;
     }
-    return c;
+    return (rc & 1) !== (lc & 1) || (rc & 1) === 1;
   }
   function geometryProblem(S, r) {
     var R = S.rows, C = S.cols;
@@ -215,9 +216,24 @@
     }
     return yScalar(v);
   }
-  function regionsLines(S) {
+  // the regions block; unchanged regions keep their original lines (and comments)
+  function regionsLines(S, span) {
     if (!S.regions.length) return ["regions: []"];
-    return ["regions:"].concat(S.regions.map(function (r) { return "  - " + yFlow(r); }));
+    var lines = D.config_text.split("\n"), dash = "  ", orig = [];
+    if (span && span.items) {
+      dash = new Array(span.dash_col - span.col + 1).join(" ");
+      orig = span.items.map(function (it, k) { return { json: JSON.stringify((S.rawStack.regions || [])[k]), lines: lines.slice(it.start, it.end) }; });
+    }
+    var out = ["regions:"];
+    S.regions.forEach(function (r) {
+      var j = JSON.stringify(r), k;
+      for (k = 0; k < orig.length; k++) if (orig[k] && orig[k].json === j) break;
+      if (k < orig.length) {
+        orig[k].lines.forEach(function (l, n) { out.push(n === 0 ? dash + l.slice(span.dash_col) : l.slice(span.col)); });
+        orig[k] = null;
+      } else out.push(dash + "- " + yFlow(r));
+    });
+    return out;
   }
   function emissivitySpec(S) {
     var names = Object.keys(S.assign);
@@ -251,7 +267,7 @@
       if (!(S.regionsChanged || S.emisChanged || S.reflChanged || S.spotsChanged.hotspots || S.spotsChanged.coldspots)) return;
       if (!sp.item.ok) { fallback = true; return; }
       var cc = sp.item.child_col, end = sp.item.end;
-      if (S.regionsChanged) put(sp.keys.regions, regionsLines(S), cc, end);
+      if (S.regionsChanged) put(sp.keys.regions, regionsLines(S, sp.keys.regions), cc, end);
       ["hotspots", "coldspots"].forEach(function (k) { if (S.spotsChanged[k]) put(sp.keys[k], [k + ": " + yFlow(S.spots[k])], cc, end); });
       var cond = {};
       if (S.emisChanged) cond.emissivity = emissivitySpec(S);
