@@ -64,3 +64,33 @@ def demo_copy(folder: Path):
     """The shipped demo survey copied into ``folder``."""
     shutil.copytree(ROOT / "demo_frames", folder)
     return folder / "survey.yaml"
+
+
+def big_scene(folder: Path, rows=512, cols=640, frames=10):
+    """A large stack for the page-size and time-to-ready figures (no truth needed):
+    a smooth 5-11 C field as linear counts with +-2 counts of noise."""
+    from irpipe.radiometry import SpectralResponse
+
+    folder.mkdir(parents=True, exist_ok=True)
+    band = SpectralResponse.rectangular(7.5e-6, 14e-6)
+    rr, cc = np.mgrid[0:rows, 0:cols]
+    t = K0 + 5.0 + 4.0 * rr / rows + 2.0 * np.sin(cc / 40.0)
+    grid = np.linspace(t.min() - 1, t.max() + 1, 2001)
+    lum = np.interp(t, grid, band.band_radiance(grid))
+    rng = np.random.default_rng(1)
+    raw = np.rint(2000.0 + 250.0 * lum)[None] + rng.integers(-2, 3, (frames, rows, cols))
+    tifffile.imwrite(folder / "big.tif", raw.astype(np.uint16), photometric="minisblack")
+    (folder / "survey.yaml").write_text(f"""camera:
+  spectral_band_um: [7.5, 14.0]
+  calibration: {{model: linear, gain: 250.0, offset_counts: 2000.0}}
+conditions: {{emissivity: 0.93, reflected_temperature_c: 0, air_temperature_c: 5, distance_m: 0}}
+uncertainty: {{emissivity: 0.02, reflected_temperature_k: 2.0}}
+stacks:
+  - name: big
+    path: big.tif
+    regions:
+      - {{name: wall, rect: [10, 10, {rows // 2}, {cols // 2}]}}
+      - {{name: corner, polygon: [[0, {cols - 100}], [0, {cols - 1}], [100, {cols - 1}]]}}
+output: {{dir: out}}
+""")
+    return folder / "survey.yaml"

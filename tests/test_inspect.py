@@ -87,3 +87,15 @@ def test_config_text_cannot_break_out_of_the_data_element(tmp_path):
     html = dest.read_text()
     assert html.count("</script>") == 2          # the data element's and the script's own
     assert "\\u003c/script\\u003e" in html
+
+
+def test_page_stays_within_its_size_budget(tmp_path):
+    from irpipe.inspect import page_budget
+    cfg, _ = pane_scene(tmp_path / "s", frames=5)
+    dest, _ = write_page(cfg, tmp_path / "p.html")
+    size = dest.stat().st_size
+    assert size <= page_budget(48, 64, 5)
+    # and the frames are what grows with the stack: 16 bits per pixel per frame, base64
+    cfg2, _ = pane_scene(tmp_path / "t", frames=1)
+    dest2, _ = write_page(cfg2, tmp_path / "q.html")
+    assert abs((size - dest2.stat().st_size) - 5 * 48 * 64 * 2 * 4 / 3) < 2000

@@ -210,3 +210,23 @@ def test_config_text_is_never_run(drv, tmp_path):
     (cfg.parent / "x.yaml").write_text(yml)
     c = load_config(cfg.parent / "x.yaml")
     assert c.data["survey"]["title"] == hostile
+
+
+def test_large_stack_page_becomes_ready(drv, tmp_path):
+    """One 640 x 512 stack of 10 frames: the page resolves ready and reads like the TIFF.
+    Its time to ready is measured by benchmarks/bench_inspect.py (no timed assertion)."""
+    from inspect_scenes import big_scene
+    cfg = big_scene(tmp_path / "big")
+    run(cfg, write_report=False)
+    page, notes = write_page(cfg, tmp_path / "big.html")
+    assert "earlier run" in notes[0]
+    drv.get(page.as_uri())
+    assert isinstance(wait_ready(drv), (int, float))
+    t = np.nanmean(tifffile.imread(cfg.parent / "out" / "big.temperature.tif").astype(np.float64), axis=0)
+    for r, c in [(0, 0), (511, 639), (256, 320), (100, 600)]:
+        o = drv.execute_script("return window.irpipe.readout('big', arguments[0], arguments[1])", r, c)
+        assert abs(o["temperature_c"] - t[r, c]) < 0.01
+    from selenium.webdriver.common.by import By
+    w = drv.execute_script("return arguments[0].getBoundingClientRect().width",
+                           drv.find_element(By.CSS_SELECTOR, 'canvas[data-stack="big"]'))
+    assert w >= 640

@@ -19,11 +19,12 @@ The page holds, per stack, everything its script needs (no server, no network):
   evaluated per carried frame and averaged; the difference between the exact mean frame
   and the mean of the quantised frames is carried through to first order.
 
-Page size budget (base64 in the HTML): about 11 bytes per pixel per stack (mean
-temperature, uncertainty, two emissivity images, counts when some frames are invalid)
-plus 2.7 bytes per pixel per carried frame (16-bit frames), plus about 80 kB per stack
-for the G(T) table. A 640 x 512 stack of 10 frames is about 5.5 MB... 13 MB: see
-``benchmarks/bench_inspect.py``.
+Page size budget (base64 in the HTML, ``page_budget``): per stack 14 bytes per pixel
+(mean temperature and uncertainty as float32, the two emissivity images as 8-bit indices
+or float32 maps, valid-frame counts when some frames are invalid) plus 2.7 bytes per pixel
+per carried frame (16 bits), plus 250 kB for the script, the G(T) table and the config.
+Measured (``benchmarks/bench_inspect.py``): one 640 x 512 stack of 10 frames makes a
+13.2 MB page, 4.4 MB for the stack and 0.87 MB per frame; at most 32 frames are carried.
 
 Text from the config reaches the page only as JSON inside a ``<script
 type="application/json">`` element with ``<``, ``>`` and ``&`` escaped, and the script
@@ -46,6 +47,19 @@ from ..errors import ConfigError
 
 T_STEP_K = 0.1          # spacing of the G(T) nodes carried to the page [K]
 MAX_FRAMES = 32         # frames carried for the slider (evenly spaced beyond this)
+
+
+BUDGET_BYTES_PER_PIXEL = 14.0          # per stack: images other than the frames
+BUDGET_BYTES_PER_PIXEL_FRAME = 2.7     # per carried frame
+BUDGET_FIXED_BYTES = 250_000           # per page and per stack: script, G(T) table, config
+
+
+def page_budget(rows, cols, frames_carried, stacks=1):
+    """Upper bound of the page size [bytes] for ``stacks`` stacks of rows x cols pixels and
+    ``frames_carried`` carried frames each (0 for single-frame stacks)."""
+    px = rows * cols
+    return int(stacks * (px * (BUDGET_BYTES_PER_PIXEL + BUDGET_BYTES_PER_PIXEL_FRAME * frames_carried)
+                         + BUDGET_FIXED_BYTES) + BUDGET_FIXED_BYTES)
 
 
 def colour_table(name="inferno", n=256):
