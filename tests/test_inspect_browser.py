@@ -230,3 +230,81 @@ def test_large_stack_page_becomes_ready(drv, tmp_path):
     w = drv.execute_script("return arguments[0].getBoundingClientRect().width",
                            drv.find_element(By.CSS_SELECTOR, 'canvas[data-stack="big"]'))
     assert w >= 640
+
+
+def test_controls_with_real_events(drv, tmp_path):
+    """Ellipse and polygon by mouse, move, typed name, typed coordinates, surface menu,
+    typed colour limits, frame slider and a pinned reading, all through the page's controls."""
+    from matplotlib import colormaps
+    from selenium.webdriver.common.action_chains import ActionChains
+    from selenium.webdriver.common.by import By
+    from selenium.webdriver.common.keys import Keys
+    from selenium.webdriver.support.ui import Select
+
+    cfg, _ = pane_scene(tmp_path / "s", frames=3)
+    page, _ = write_page(cfg, tmp_path / "pane.html")
+    open_page(drv, page)
+    canvas = drv.find_element(By.CSS_SELECTOR, 'canvas[data-stack="pane"]')
+    sec = canvas.find_element(By.XPATH, "./ancestor::section")
+    w, h = drv.execute_script("var b = arguments[0].getBoundingClientRect(); return [b.width, b.height]", canvas)
+
+    def edge(r, c):      # offset from the canvas centre to the pixel corner (r, c)
+        return int(round(c * w / 64 - w / 2)), int(round(r * h / 48 - h / 2))
+
+    def centre(r, c):
+        return int(round((c + 0.5) * w / 64 - w / 2)), int(round((r + 0.5) * h / 48 - h / 2))
+
+    def tool(name):
+        sec.find_element(By.CSS_SELECTOR, f'button[data-tool="{name}"]').click()
+
+    def regions():
+        return drv.execute_script("return window.irpipe.regions('pane')")
+
+    tool("ellipse")
+    ActionChains(drv).move_to_element_with_offset(canvas, *edge(4, 6)).click_and_hold() \
+        .move_to_element_with_offset(canvas, *edge(12, 20)).release().perform()
+    e = regions()[-1]["ellipse"]
+    assert e == {"center": [7.5, 12.5], "radii": [4, 7]}     # the box [4, 6, 12, 20] in pixel centres
+    tool("polygon")
+    ac = ActionChains(drv)
+    for r, c in [(30, 5), (30, 25), (44, 15)]:
+        ac.move_to_element_with_offset(canvas, *centre(r, c)).click()
+    ac.double_click().perform()
+    assert regions()[-1]["polygon"] == [[30, 5], [30, 25], [44, 15]]
+    tool("select")
+    ActionChains(drv).move_to_element_with_offset(canvas, *centre(7, 12)).click_and_hold() \
+        .move_to_element_with_offset(canvas, *centre(9, 15)).release().perform()
+    moved = [r for r in regions() if "ellipse" in r][0]["ellipse"]
+    assert moved == {"center": [9.5, 15.5], "radii": [4, 7]}
+    # the table: typed name, typed coordinates, surface from the library
+    rows = sec.find_elements(By.CSS_SELECTOR, "tbody tr")
+    name = rows[1].find_element(By.CSS_SELECTOR, "input.name")
+    name.send_keys(Keys.CONTROL, "a")
+    name.send_keys("vent cover", Keys.TAB)
+    assert [r["name"] for r in regions()][:2] == ["wall", "vent cover"]
+    rows = sec.find_elements(By.CSS_SELECTOR, "tbody tr")
+    geom = rows[0].find_element(By.CSS_SELECTOR, "input.geom")
+    geom.send_keys(Keys.CONTROL, "a")
+    geom.send_keys("rect 36, 2, 46, 60", Keys.TAB)
+    assert regions()[0]["rect"] == [36, 2, 46, 60]
+    rows = sec.find_elements(By.CSS_SELECTOR, "tbody tr")
+    Select(rows[1].find_element(By.TAG_NAME, "select")).select_by_value("m:glass-uncoated")
+    o = drv.execute_script("return window.irpipe.readout('pane', 9, 15)")
+    assert o["emissivity"] == pytest.approx(library_emissivity("glass-uncoated"), abs=1e-9)
+    assert "vent cover: glass-uncoated" in drv.execute_script("return window.irpipe.surveyYaml()")
+    # typed colour limits below every temperature: the whole image takes the top colour
+    lo, hi = sec.find_elements(By.CSS_SELECTOR, ".bar input.num")
+    hi.send_keys(Keys.CONTROL, "a")
+    hi.send_keys("-40", Keys.TAB)
+    lo.send_keys(Keys.CONTROL, "a")
+    lo.send_keys("-50", Keys.TAB)
+    px = drv.execute_script("return Array.from(arguments[0].getContext('2d').getImageData(3, 3, 1, 1).data)", canvas)
+    top = np.round(np.asarray(colormaps["inferno"](1.0)[:3]) * 255)
+    assert np.abs(np.asarray(px[:3]) - top).max() <= 1
+    # frame slider and a pinned reading
+    slider = sec.find_element(By.CSS_SELECTOR, 'input[type="range"]')
+    slider.send_keys(Keys.RIGHT)
+    tool("point")
+    ActionChains(drv).move_to_element_with_offset(canvas, *centre(20, 30)).click().perform()
+    pins = sec.find_elements(By.CSS_SELECTOR, "ul.findings li")
+    assert any(p.text.startswith("row 20, col 30:") and "this frame" in p.text for p in pins)

@@ -606,7 +606,11 @@
     S.regions.forEach(function (r) {
       var b = bbox(r);
       g.strokeStyle = r === S.sel ? "#00e5ff" : "#ffffff";
-      if (r.mask) { if (!b) return; } else { outline(g, S, r, sx, sy); g.stroke(); }
+      if (r.mask) {
+        var ov = maskOverlay(S, r);
+        if (ov) { g.globalAlpha = 0.35; g.drawImage(ov.canvas, 0, 0, W, H); g.globalAlpha = 1; b = ov.box; }
+        if (!b) return;
+      } else { outline(g, S, r, sx, sy); g.stroke(); }
       if (b) { g.fillStyle = r === S.sel ? "#00e5ff" : "#ffffff"; g.fillText(r.name, b[1] * sx + 2, b[0] * sy + 11); }
       if (r === S.sel && b) { g.fillStyle = "#00e5ff"; g.fillRect(b[3] * sx - 4, b[2] * sy - 4, 8, 8); }
     });
@@ -614,6 +618,23 @@
     if (S.draft && S.draft.tool === "polygon" && !spec && S.draft.pts.length) spec = { polygon: S.draft.pts.concat(S.draft.hover ? [S.draft.hover] : []) };
     if (spec) { g.strokeStyle = "#00ff88"; g.setLineDash([5, 3]); outline(g, S, spec, sx, sy); g.stroke(); g.setLineDash([]); }
     S.pins.forEach(function (p) { var x = (p[1] + 0.5) * sx, y = (p[0] + 0.5) * sy; g.strokeStyle = "#00ff88"; g.beginPath(); g.moveTo(x - 5, y); g.lineTo(x + 5, y); g.moveTo(x, y - 5); g.lineTo(x, y + 5); g.stroke(); });
+  }
+  // a region given as a mask image: a translucent overlay, made once
+  function maskOverlay(S, r) {
+    if (!S.fileMasks.has(r)) return null;
+    if (S.overlays.has(r)) return S.overlays.get(r);
+    var m = S.fileMasks.get(r), c = document.createElement("canvas"), box = [S.rows, S.cols, 0, 0];
+    c.width = S.cols; c.height = S.rows;
+    var g = c.getContext("2d"), img = g.createImageData(S.cols, S.rows);
+    for (var i = 0; i < m.length; i++) if (m[i]) {
+      img.data[4 * i] = img.data[4 * i + 1] = img.data[4 * i + 2] = img.data[4 * i + 3] = 255;
+      var rr = Math.floor(i / S.cols), cc = i % S.cols;
+      box[0] = Math.min(box[0], rr); box[1] = Math.min(box[1], cc); box[2] = Math.max(box[2], rr + 1); box[3] = Math.max(box[3], cc + 1);
+    }
+    g.putImageData(img, 0, 0);
+    var ov = { canvas: c, box: box[2] > 0 ? box : null };
+    S.overlays.set(r, ov);
+    return ov;
   }
   function setZoom(S, z) {
     S.zoom = z;
@@ -717,7 +738,7 @@
     S.frameCache = {};
     S.rawStack = copy(raw);
     S.regions = copy(raw.regions || []);
-    S.fileMasks = new WeakMap();
+    S.fileMasks = new WeakMap(); S.overlays = new WeakMap();
     S.regions.forEach(function (r) {
       if (r.mask && d.masks[r.name]) {
         var b = bytes(d.masks[r.name]), m = new Uint8Array(N);
