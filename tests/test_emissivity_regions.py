@@ -147,3 +147,22 @@ def test_default_is_required(tmp_path):
     p.write_text(p.read_text().replace(", default: 0.95}", "}"))
     with pytest.raises(ConfigError, match=r"emissivity: missing required key 'default'"):
         load_config(p)
+
+
+def test_survey_level_block_names_regions_of_every_stack(tmp_path):
+    scene(tmp_path)
+    p = tmp_path / "survey.yaml"
+    text = p.read_text().replace("conditions:\n  reflected_temperature_c: -10",
+                                 "conditions:\n  emissivity: {regions: {glazing: 0.84}, default: 0.95}\n"
+                                 "  reflected_temperature_c: -10")
+    text = text.replace("    conditions:\n      emissivity: {regions: {brick: brick-common, glazing: 0.84}, default: 0.95}\n", "")
+    p.write_text(text)
+    cfg = load_config(p)
+    assert cfg.data["stacks"][0].get("conditions", {}).get("emissivity") is None
+    res = run(p, tmp_path / "out", write_report=False)
+    got = np.nanmean(tifffile.imread(tmp_path / "out" / "wall.temperature.tif"), axis=0)
+    assert abs(got[20, 40] - 9.0) < 0.15            # glazing region: 0.84 from the survey-level block
+    p.write_text(text.replace("{name: glazing,", "{name: pane,"))
+    with pytest.raises(ConfigError, match=r"conditions\.emissivity\.regions\.glazing: 'glazing' is not a region "
+                                          r"of stack 'wall'"):
+        load_config(p)

@@ -308,3 +308,42 @@ def test_controls_with_real_events(drv, tmp_path):
     ActionChains(drv).move_to_element_with_offset(canvas, *centre(20, 30)).click().perform()
     pins = sec.find_elements(By.CSS_SELECTOR, "ul.findings li")
     assert any(p.text.startswith("row 20, col 30:") and "this frame" in p.text for p in pins)
+
+
+def test_recomputed_temperatures_with_reflector_and_view_angles(drv, tmp_path):
+    """porch-door (per-pixel plan, reflector method: reflected temperature per frame) with a
+    stack view angle and a region with its own angle: the page's recomputed temperatures
+    after setSurface equal what irpipe run then writes, within 0.01 K."""
+    cfg = demo_copy(tmp_path / "demo")
+    text = cfg.read_text()
+    text = text.replace("      emissivity: paint-non-metallic\n", "      emissivity: paint-non-metallic\n      view_angle_deg: 25\n")
+    text = text.replace("{name: door-panel, rect: [20, 30, 110, 90]}", "{name: door-panel, rect: [20, 30, 110, 90], view_angle_deg: 50}")
+    cfg.write_text(text)
+    page, _ = write_page(cfg, tmp_path / "d.html", stacks=["porch-door"])
+    open_page(drv, page)
+    assert drv.execute_script("return window.irpipe.stacks()") == ["porch-door"]
+    drv.execute_script("window.irpipe.addRegion('porch-door', {name: 'kick plate', rect: [90, 30, 110, 90]});"
+                       "window.irpipe.setSurface('porch-door', 'door-panel', 'timber');"
+                       "window.irpipe.setSurface('porch-door', 'kick plate', 0.6);")
+    probe = [(25, 40), (60, 60), (100, 50), (100, 100), (5, 5)]
+    got = {p: drv.execute_script("return window.irpipe.readout('porch-door', arguments[0], arguments[1])", *p)
+           for p in probe}
+    stats = {n: drv.execute_script("return window.irpipe.regionStats('porch-door', arguments[0])", n)
+             for n in ("door-panel", "kick plate")}
+    edited = cfg.parent / "survey.edited.yaml"
+    edited.write_text(drv.execute_script("return window.irpipe.surveyYaml()"))
+    run(edited, tmp_path / "out", write_report=False)
+    temp = tifffile.imread(tmp_path / "out" / "porch-door.temperature.tif").astype(np.float64)
+    mean = np.nanmean(temp, axis=0)
+    for (r, c), o in got.items():
+        assert abs(o["temperature_c"] - mean[r, c]) < 0.01, (r, c, o, mean[r, c])
+    c = load_config(edited)
+    st = [s for s in c.data["stacks"] if s["name"] == "porch-door"][0]
+    for reg in st["regions"]:
+        if reg["name"] in stats:
+            m = region_mask((120, 160), reg)
+            assert abs(stats[reg["name"]]["mean_c"] - np.nanmean(temp[:, m])) < 0.01, reg["name"]
+    # emissivity used = library value x Fresnel factor at 50 deg (region) for timber
+    from irpipe.emissivity import oblique_factor
+    assert got[(60, 60)]["emissivity"] == pytest.approx(library_emissivity("timber") * float(oblique_factor(50)), abs=1e-9)
+    assert got[(100, 50)]["emissivity"] == pytest.approx(0.6 * float(oblique_factor(50)), abs=1e-9)
