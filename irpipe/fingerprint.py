@@ -9,8 +9,9 @@ Two SHA-256 digests over canonical JSON:
   reflector region, regions with their own viewing angle), in list order. Drawing,
   moving or renaming any other region leaves it unchanged, so ``irpipe inspect`` reuses
   the outputs of an earlier run instead of recomputing them.
-* ``stack_fingerprint``: the whole run of a stack (statistics, findings, report entry);
-  ``irpipe run --resume`` skips a stack when it matches.
+* ``stack_fingerprint`` (``irpipe.manifest``, re-exported here): the whole run of a stack
+  (statistics, findings, report entry); ``irpipe run --resume`` skips a stack when it
+  matches.
 
 Both are written per stack to ``manifest.json`` by the pipeline; these two functions are
 the only place they are computed.
@@ -22,6 +23,7 @@ import json
 
 from . import __version__
 from .config import merged_camera, merged_conditions
+from .manifest import stack_fingerprint  # noqa: F401  (the whole-run fingerprint, re-exported)
 
 
 def _digest(obj) -> str:
@@ -52,7 +54,7 @@ def pixel_fingerprint(cfg, i, input_hashes: dict) -> str:
     i : int
         Index of the stack in ``cfg.data["stacks"]``.
     input_hashes : dict
-        ``{file path: sha256}`` of the stack's input files (``pipeline._inputs_of``).
+        ``{file path: sha256}`` of the stack's input files (``manifest.stack_inputs``).
     """
     st = cfg.data["stacks"][i]
     keep = set(pixel_regions(cfg, i))
@@ -62,12 +64,3 @@ def pixel_fingerprint(cfg, i, input_hashes: dict) -> str:
     return _digest({"camera": merged_camera(cfg.data, i), "conditions": merged_conditions(cfg.data, i),
                     "pixel_regions": regions, "path": st["path"].name,
                     "uncertainty": cfg.data.get("uncertainty", {}), "inputs": inputs, "version": __version__})
-
-
-def stack_fingerprint(cfg, i, input_hashes: dict) -> str:
-    """Digest of everything the run of stack ``i`` depends on (``irpipe run --resume``)."""
-    st = cfg.data["stacks"][i]
-    return _digest({"camera": merged_camera(cfg.data, i), "conditions": merged_conditions(cfg.data, i),
-                    "stack": st, "survey": cfg.data.get("survey", {}),
-                    "uncertainty": cfg.data.get("uncertainty", {}), "inputs": input_hashes,
-                    "version": __version__})

@@ -8,8 +8,8 @@ import tifffile
 
 from irpipe.config import load_config
 from irpipe.fingerprint import pixel_fingerprint, stack_fingerprint
-from irpipe.pipeline import _inputs_of, run
-from irpipe.io import sha256
+from irpipe.manifest import hash_files, stack_inputs
+from irpipe.pipeline import run
 
 
 def survey(tmp_path, regions, emissivity="0.95"):
@@ -25,7 +25,7 @@ stacks:
     p = tmp_path / "survey.yaml"
     p.write_text(text)
     cfg = load_config(p)
-    hashes = {str(f): sha256(f) for f in _inputs_of(cfg, 0)}
+    hashes = hash_files(stack_inputs(cfg, 0))
     return cfg, pixel_fingerprint(cfg, 0, hashes), stack_fingerprint(cfg, 0, hashes)
 
 

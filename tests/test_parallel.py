@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 import tifffile
 
-from irpipe import parallel, pipeline
+from irpipe import parallel, pipeline, runner
 from irpipe.config import load_config
 from irpipe.io import StackReader, StackWriter
 
@@ -167,7 +167,7 @@ def test_lazy_graph_computes_nothing_until_asked(survey):
     chain = build_chain(ctx)
     for s in chain[:2]:
         s.start(ctx)
-    rad = chain[[s.name for s in chain].index("radiometric")]
+    tables = ctx.tables
 
     class Count(Callback):
         n = 0
@@ -177,7 +177,7 @@ def test_lazy_graph_computes_nothing_until_asked(survey):
 
     with Count():
         raw = parallel.lazy_stack(ctx.stack["path"], ctx.shape, ctx.dtype, 5)
-        t, side = parallel.lazy_temperature(raw, parallel.PixelKernel([], rad))
+        t, side = parallel.lazy_temperature(raw, tables)
         assert t.dims == ("frame", "row", "col") and t.chunks[0] == (5, 5, 5, 5, 3)
         assert t.attrs["units"] == "degC"
         assert Count.n == 0                        # building the graph ran no task
@@ -185,7 +185,7 @@ def test_lazy_graph_computes_nothing_until_asked(survey):
         assert Count.n > 0
     with StackReader(ctx.stack["path"]) as r:
         raw_np = r.read(5, 10)
-    want = rad.lut_flat.take(np.add(raw_np, rad.offsets, dtype=np.int64) if rad.offsets is not None else raw_np)
+    want = tables.lut_c.ravel().take(tables.index_of(raw_np))
     np.testing.assert_array_equal(block.values, want)
 
 
@@ -215,7 +215,7 @@ def test_stream_chain_reraises_a_stage_error_after_stopping_threads():
     seen = Seen()
     chunks = (Chunk(k, np.zeros((2, 2, 2))) for k in range(0, 20, 2))
     with pytest.raises(RuntimeError, match="boom at 6"):
-        parallel.stream_chain([Boom(), seen], Ctx(), chunks)
+        runner.stream_chain([Boom(), seen], Ctx(), chunks)
     assert seen.firsts == [0, 2, 4]                # in order, nothing after the failure
 
 
@@ -228,7 +228,6 @@ def test_stream_chain_keeps_frame_order_in_every_stage():
 
         def process(self, chunk, ctx):
             self.firsts.append(chunk.first)
-            chunk.extras[self.name] = True
 
     class Ctx:
         shape = (300, 1, 1)
@@ -236,7 +235,7 @@ def test_stream_chain_keeps_frame_order_in_every_stage():
 
     stages = [Rec(f"s{k}") for k in range(5)]
     done = []
-    parallel.stream_chain(stages, Ctx(), (Chunk(k, np.zeros((3, 1, 1))) for k in range(0, 300, 3)),
+    runner.stream_chain(stages, Ctx(), (Chunk(k, np.zeros((3, 1, 1))) for k in range(0, 300, 3)),
                           progress=lambda name, d, n: done.append(d))
     for s in stages:
         assert s.firsts == list(range(0, 300, 3))
@@ -282,9 +281,98 @@ def test_picture_histogram_from_table_counts_equals_binning_pixels(survey, tmp_p
     _, _, ctxs = pipeline.plan(c, tmp_path, {"frame_chunk": 5, "formats": ["tiff"]})
     rep = pipeline.run_stack(ctxs[0])
     assert rep["plan"] == "lookup"
-    got = ctxs[0].shared["picture"]
+    got = ctxs[0].picture.as_dict()
     want = picture_from_tiff(tmp_path / "wall.temperature.tif")
     np.testing.assert_array_equal(got["hist_counts"], want["hist_counts"])
     np.testing.assert_array_equal(got["hist_edges_c"], want["hist_edges_c"])
     # (the mean image's float32 sums run over other frame groups: equal to rounding)
     np.testing.assert_allclose(got["mean_c"], want["mean_c"], rtol=0, atol=1e-4)
+
+
+# --- one kernel, every way of running it -------------------------------------------------
+
+def test_lookup_and_per_pixel_plans_give_the_same_temperatures(survey, tmp_path):
+    """The same scene through both plans of the one pixel kernel: the label emissivity as
+    labels (lookup plan, float64 tables) and as an equal float map (per-pixel plan,
+    float32 arithmetic). Tolerance: the per-pixel plan's float32 working precision,
+    documented as within 0.01 K of float64 (irpipe.kernel)."""
+    from irpipe.emissivity import material_emissivity
+    from irpipe.prepare import load_materials
+
+    folder, cfg, plain = survey
+    labels = tifffile.imread(folder / "labels.tif")
+    lib = load_materials(load_config(cfg))
+    eps = {1: "brick-common", 2: "glass-uncoated", 3: "galvanised-steel-weathered"}
+    emap = np.zeros(labels.shape, np.float32)
+    for k, name in eps.items():
+        emap[labels == k] = material_emissivity(name, lib)
+    tifffile.imwrite(folder / "emissivity_map.tif", emap)
+    text = cfg.read_text()
+    start = text.index("  emissivity:")
+    end = text.index("  reflected_temperature_c")
+    (folder / "map.yaml").write_text(text[:start] + "  emissivity: {map: emissivity_map.tif}\n" + text[end:])
+    res = pipeline.run(folder / "map.yaml", tmp_path / "map", quiet=True)
+    assert _stack_report(res)["plan"] == "per-pixel" and _stack_report(plain)["plan"] == "lookup"
+    a = tifffile.imread(tmp_path / "map" / "wall.temperature.tif")
+    b = tifffile.imread(folder / "plain" / "wall.temperature.tif")
+    np.testing.assert_array_equal(np.isnan(a), np.isnan(b))
+    ok = np.isfinite(a)
+    assert np.abs(a[ok] - b[ok]).max() < 0.01
+    assert _stack_report(res)["invalid_pixels"] == _stack_report(plain)["invalid_pixels"]
+
+
+def test_field_command_reads_the_signal_the_run_corrects(survey):
+    """measure_regions (irpipe emissivity) runs the stack's own chain: the region signal it
+    returns, put through the measurement equation with the stack's emissivity, gives the
+    run's frame-averaged temperatures (equal in signal units; frames averaged in signal)."""
+    from irpipe.cli_field import measure_regions
+    from irpipe.constants import ZERO_CELSIUS
+
+    folder, cfg, plain = survey
+    m = measure_regions(cfg, "wall", ["field"])
+    sig = m["signal"]["field"]
+    from irpipe.prepare import load_materials
+    from irpipe.emissivity import material_emissivity
+    eps = material_emissivity("brick-common", load_materials(load_config(cfg)))
+    t_mean_signal = m["model"].object_temperature(sig, eps, m["reflected_temperature_k"],
+                                                  m["air_temperature_k"]) - ZERO_CELSIUS
+    temp = tifffile.imread(folder / "plain" / "wall.temperature.tif")[:, 20:38, 2:30].reshape(FRAMES, -1)
+    # the run's temperatures turned back into signal and averaged over frames
+    model = m["model"]
+    g_refl, path = model.background(eps, m["reflected_temperature_k"], m["air_temperature_k"])
+    s_run = eps * model.path_signal(temp.astype(np.float64) + ZERO_CELSIUS) + (1 - eps) * g_refl + path
+    want = model.object_temperature(np.nanmean(s_run, axis=0), eps, m["reflected_temperature_k"],
+                                    m["air_temperature_k"]) - ZERO_CELSIUS
+    np.testing.assert_allclose(t_mean_signal, want, atol=2e-3)
+
+
+@pytest.mark.parametrize("edit, key", [
+    (("hotspots: {above_reference_k: 1.0, reference: median, min_area_px: 2}", "hotspots: {min_area_px: 2}"),
+     "hotspots: no threshold"),
+    (("hotspots: {above_reference_k: 1.0, reference: median, min_area_px: 2}",
+      "hotspots: {above_reference_k: 1.0, min_area_px: 2}"), "above_reference_k is relative to a reference"),
+    (("      - {name: overlap, rect: [8, 20, 30, 50]}",
+      "      - {name: overlap, rect: [8, 20, 30, 50], role: component, reference: nowhere}"),
+     "'nowhere' is not a region of this stack"),
+    (("reflected_temperature_c: -8.0", "reflected_temperature_c: {reflector: field, reflector_emissivity: 0.6}"),
+     "a reflector of emissivity 0.6 is not a reflector"),
+], ids=["spot-without-threshold", "relative-without-reference", "unknown-electrical-reference",
+        "reflector-emissivity"])
+def test_validate_rejects_late_config_errors(tmp_path, edit, key):
+    """Each error a stage could once raise mid-run is caught by `irpipe validate`: one
+    line naming the file and key, exit 2, and `irpipe run` writes no output."""
+    import subprocess
+    import sys
+
+    cfg = make_survey(tmp_path)
+    text = cfg.read_text()
+    assert edit[0] in text
+    cfg.write_text(text.replace(edit[0], edit[1]))
+    r = subprocess.run([sys.executable, "-m", "irpipe.cli", "validate", str(cfg)], capture_output=True, text=True)
+    assert r.returncode == 2, r.stderr
+    lines = r.stderr.strip().splitlines()
+    assert len(lines) == 1 and "survey.yaml" in lines[0] and key in lines[0], r.stderr
+    r = subprocess.run([sys.executable, "-m", "irpipe.cli", "run", str(cfg), "--out", str(tmp_path / "out"),
+                        "--quiet"], capture_output=True, text=True)
+    assert r.returncode == 2
+    assert not (tmp_path / "out").exists() or not any((tmp_path / "out").iterdir())

@@ -198,8 +198,9 @@ def _quantise(frames):
 
 def stack_data(cfg, ctx, temp_path, unc_path, entry, materials, max_frames=MAX_FRAMES, refl_series_k=None):
     """Everything the page needs for one stack (a JSON-able dict)."""
+    from ..config import condition_key
     from ..emissivity import oblique_factor
-    from ..pipeline import _cond_key, resolve_emissivity
+    from ..prepare import resolve_emissivity
 
     i = ctx.index
     rows, cols = ctx.shape[1:]
@@ -219,7 +220,7 @@ def stack_data(cfg, ctx, temp_path, unc_path, entry, materials, max_frames=MAX_F
     cond = merged_conditions(cfg.data, i)
     spec = cond["emissivity"]
     default = spec["default"] if isinstance(spec, dict) and "regions" in spec else spec
-    ekey = _cond_key(cfg, i, "emissivity")
+    ekey = condition_key(cfg, i, "emissivity")
     d["emissivity_default"] = _field_json(resolve_emissivity(cfg, ekey[:-1], default, (rows, cols), materials),
                                           (rows, cols))
     n_ref = cond.get("refractive_index", 1.5)
@@ -275,16 +276,15 @@ def page_html(payload):
 def _current(out_dir, cfg, i, name):
     """The manifest entry of a previous run whose per-pixel outputs are current, or None."""
     from ..fingerprint import pixel_fingerprint, stack_fingerprint
-    from ..io import sha256
-    from ..pipeline import MANIFEST, _inputs_of, _read_json
+    from ..manifest import hash_files, read_manifest, stack_inputs
 
-    man = _read_json(out_dir / MANIFEST) or {}
+    man = read_manifest(out_dir) or {}
     prev = next((s for s in man.get("stacks", []) if s.get("name") == name and s.get("status") == "done"), None)
     if not prev or "temperature" not in prev.get("outputs", {}):
         return None
     if not all((out_dir / f).is_file() for f in prev["outputs"].values()):
         return None
-    hashes = {str(p): sha256(p) for p in _inputs_of(cfg, i)}
+    hashes = hash_files(stack_inputs(cfg, i))
     if prev.get("pixel_fingerprint") == pixel_fingerprint(cfg, i, hashes):
         prev = dict(prev, stats_current=prev.get("fingerprint") == stack_fingerprint(cfg, i, hashes))
         return prev
@@ -296,7 +296,8 @@ def _current(out_dir, cfg, i, name):
 def build(config_path, stacks=None, max_frames=MAX_FRAMES):
     """Build the page's payload: reuse current outputs from ``output.dir`` or run the
     stacks into a temporary folder. Returns (payload dict, notes list)."""
-    from ..pipeline import load_materials, prepare_stack, run_stack
+    from ..pipeline import run_stack
+    from ..prepare import load_materials, prepare_stack
 
     cfg = load_config(config_path)
     text = cfg.path.read_text(encoding="utf-8")
@@ -319,7 +320,6 @@ def build(config_path, stacks=None, max_frames=MAX_FRAMES):
             name = names[i]
             prev = _current(out_dir, cfg, i, name)
             ctx = prepare_stack(cfg, i, tmp, cameras, materials, options)
-            ctx.shared["reader"].close()
             series = None
             if prev is not None:
                 where, entry = out_dir, prev["report"]
@@ -330,7 +330,7 @@ def build(config_path, stacks=None, max_frames=MAX_FRAMES):
             else:
                 entry = run_stack(ctx)
                 where, outs = tmp, ctx.outputs
-                series = ctx.shared.get("reflected_series_k")
+                series = ctx.reflected_series_k or None
                 notes.append(f"{name}: processed now, as irpipe run would")
             unc = where / outs["uncertainty"] if "uncertainty" in outs else None
             data.append(stack_data(cfg, ctx, where / outs["temperature"], unc, entry, materials, max_frames,
