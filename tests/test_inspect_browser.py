@@ -130,14 +130,20 @@ def test_rename_and_delete_keep_the_survey_valid(drv, demo, tmp_path):
     drv.execute_script("window.irpipe.renameRegion('rear-elevation', 'brick-field', 'brick panel');"
                        "window.irpipe.deleteRegion('rear-elevation', 'window');"
                        "window.irpipe.renameRegion('workshop-board', 'breaker-L2', 'middle breaker');"
-                       "window.irpipe.setSurface('rear-elevation', 'lintel', 'concrete');")
+                       "window.irpipe.setSurface('rear-elevation', 'lintel', 'concrete');"
+                       "window.irpipe.renameRegion('rear-elevation', 'lintel', 'lintel over door');"
+                       "window.irpipe.renameRegion('porch-door', 'foil', 'reflector foil');")
+    err = drv.execute_script("try { window.irpipe.deleteRegion('porch-door', 'reflector foil'); return null; }"
+                             " catch (e) { return e.message; }")
+    assert "is the reflector of reflected_temperature_c" in err
     text = drv.execute_script("return window.irpipe.surveyYaml()")
     edited = cfg.parent / "survey.renamed.yaml"
     edited.write_text(text)
     c = load_config(edited)
     st = c.data["stacks"]
     assert st[0]["hotspots"]["reference"] == "brick panel" and "exclude" not in st[0]["hotspots"]
-    assert st[0]["conditions"]["emissivity"]["regions"] == {"lintel": "concrete"}
+    assert st[0]["conditions"]["emissivity"]["regions"] == {"lintel over door": "concrete"}
+    assert st[3]["conditions"]["reflected_temperature_c"]["reflector"] == "reflector foil"
     assert st[0]["conditions"]["emissivity"]["default"]["values"][3] == "glass-uncoated"
     assert [r.get("reference") for r in st[2]["regions"]] == ["middle breaker", "breaker-L3", "middle breaker", None]
     plan(c, cfg.parent / "unused")

@@ -20,9 +20,10 @@ The page holds, per stack, everything its script needs (no server, no network):
   and the mean of the quantised frames is carried through to first order.
 
 Page size budget (base64 in the HTML, ``page_budget``): per stack 14 bytes per pixel
-(mean temperature and uncertainty as float32, the two emissivity images as 8-bit indices
-or float32 maps, valid-frame counts when some frames are invalid) plus 2.7 bytes per pixel
-per carried frame (16 bits), plus 250 kB for the script, the G(T) table and the config.
+(mean temperature and uncertainty as float32, the two emissivity images as 8-bit indices,
+valid-frame counts when some frames are invalid; 25 bytes when the emissivity is a float
+map) plus 2.7 bytes per pixel per carried frame (16 bits), plus 250 kB for the script, the
+G(T) table and the config.
 Measured (``benchmarks/bench_inspect.py``): one 640 x 512 stack of 10 frames makes a
 13.2 MB page, 4.4 MB for the stack and 0.87 MB per frame; at most 32 frames are carried.
 
@@ -253,8 +254,20 @@ def stack_data(cfg, ctx, temp_path, unc_path, entry, materials, max_frames=MAX_F
 
 # --- the page ------------------------------------------------------------------------------
 
+def _finite(obj):
+    """NaN and infinities as null (JSON has no such numbers)."""
+    if isinstance(obj, float):
+        return obj if np.isfinite(obj) else None
+    if isinstance(obj, dict):
+        return {k: _finite(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_finite(v) for v in obj]
+    return obj
+
+
 def _json_for_html(obj):
-    s = json.dumps(obj, separators=(",", ":"), default=str, allow_nan=False)
+    """JSON that cannot end the <script> element it sits in nor start markup."""
+    s = json.dumps(_finite(obj), separators=(",", ":"), default=str, allow_nan=False)
     return (s.replace("&", "\\u0026").replace("<", "\\u003c").replace(">", "\\u003e")
             .replace("\u2028", "\\u2028").replace("\u2029", "\\u2029"))
 
