@@ -353,3 +353,28 @@ def test_recomputed_temperatures_with_reflector_and_view_angles(drv, tmp_path):
     from irpipe.emissivity import oblique_factor
     assert got[(60, 60)]["emissivity"] == pytest.approx(library_emissivity("timber") * float(oblique_factor(50)), abs=1e-9)
     assert got[(100, 50)]["emissivity"] == pytest.approx(0.6 * float(oblique_factor(50)), abs=1e-9)
+
+
+def test_a_drag_in_the_default_mode_draws_a_rectangle_and_a_click_pins(drv, demo):
+    from selenium.webdriver.common.action_chains import ActionChains
+    from selenium.webdriver.common.by import By
+
+    _, page = demo
+    open_page(drv, page)
+    canvas = drv.find_element(By.CSS_SELECTOR, 'canvas[data-stack="rear-elevation"]')
+    w, h = drv.execute_script("var b = arguments[0].getBoundingClientRect(); return [b.width, b.height]", canvas)
+
+    def at(r, c):        # offset from the element's centre to the top-left corner of pixel (r, c)
+        return int(round(c * w / 160 - w / 2)), int(round(r * h / 120 - h / 2))
+
+    n0 = len(drv.execute_script("return window.irpipe.regions('rear-elevation')"))
+    (ActionChains(drv).move_to_element_with_offset(canvas, *at(70, 12)).click_and_hold()
+     .move_to_element_with_offset(canvas, *at(80, 30)).move_to_element_with_offset(canvas, *at(95, 45))
+     .release().perform())
+    regs = drv.execute_script("return window.irpipe.regions('rear-elevation')")
+    assert len(regs) == n0 + 1
+    assert np.abs(np.subtract(regs[-1]["rect"], [70, 12, 95, 45])).max() <= 1
+    ActionChains(drv).move_to_element_with_offset(canvas, *at(10.5, 10.5)).click().perform()   # a pixel centre
+    sec = canvas.find_element(By.XPATH, "./ancestor::section")
+    assert len(drv.execute_script("return window.irpipe.regions('rear-elevation')")) == n0 + 1
+    assert any(li.text.startswith("row 10, col 10:") for li in sec.find_elements(By.CSS_SELECTOR, "ul.findings li"))

@@ -487,7 +487,9 @@
   function onDown(S, e) {
     if (e.button !== 0) return;
     var p = pointer(S, e);
-    if (S.tool === "rect" || S.tool === "ellipse") { S.draft = { tool: S.tool, a: p, b: p }; e.preventDefault(); }
+    S.dragged = false;
+    if (S.tool === "point") { S.press = { a: p, x: e.clientX, y: e.clientY }; e.preventDefault(); }
+    else if (S.tool === "rect" || S.tool === "ellipse") { S.draft = { tool: S.tool, a: p, b: p }; e.preventDefault(); }
     else if (S.tool === "select") {
       var b = S.sel && bbox(S.sel);
       var box = S.canvas.getBoundingClientRect();
@@ -504,6 +506,10 @@
   function onMove(S, e) {
     var p = pointer(S, e), px = pixelOf(S, p);
     showReadout(S, px[0], px[1]);
+    if (S.press && (e.buttons & 1) && Math.abs(e.clientX - S.press.x) + Math.abs(e.clientY - S.press.y) > 3) {
+      S.draft = { tool: "rect", a: S.press.a, b: p };      // a drag in Read mode draws a rectangle
+      S.press = null; S.dragged = true;
+    }
     if (S.draft) {
       if (S.draft.tool === "polygon") S.draft.hover = px; else S.draft.b = p;
       liveStats(S); draw(S);
@@ -517,6 +523,7 @@
     }
   }
   function onUp(S, e) {
+    S.press = null;
     if (S.draft && S.draft.tool !== "polygon") { S.draft.b = pointer(S, e); finishDraft(S); }
     if (S.grab) {
       var g = S.grab; S.grab = null;
@@ -526,6 +533,7 @@
   }
   function onClick(S, e) {
     var p = pointer(S, e), px = pixelOf(S, p);
+    if (S.dragged) { S.dragged = false; return; }
     if (S.tool === "point") { S.pins.push(px); fillPins(S); draw(S); }
     else if (S.tool === "polygon") {
       if (!S.draft) S.draft = { tool: "polygon", pts: [] };
@@ -760,11 +768,10 @@
   function buildStack(S, host) {
     var d = S.d;
     var sec = el("section", { cls: "stack", id: "stack-" + (d.index + 1) });
-    sec.appendChild(el("h2", { text: S.name }));
-    sec.appendChild(el("p", { cls: "muted", text: d.rows + " x " + d.cols + " pixels, " + d.frames + " frame(s)" +
+    var info = el("p", { cls: "muted", text: d.rows + " x " + d.cols + " pixels, " + d.frames + " frame(s)" +
       (d.frames_q && d.frames_q.count < d.frames ? ", " + d.frames_q.count + " of them carried for the frame slider" : "") +
-      (d.plan ? "; correction plan " + d.plan : "") }));
-    var tools = el("div", { cls: "bar" });
+      (d.plan ? "; correction plan " + d.plan : "") });
+    var tools = el("div", { cls: "bar" }, el("h2", { text: S.name }));
     var toolButtons = {};
     [["point", "Read"], ["rect", "Rectangle"], ["ellipse", "Ellipse"], ["polygon", "Polygon"], ["select", "Move / resize"]].forEach(function (t) {
       var b = el("button", { type: "button", text: t[1], "data-tool": t[0] });
@@ -777,8 +784,9 @@
     });
     toolButtons.point.className = "on";
     var zoom = el("select", { "aria-label": "zoom" });
-    var z0 = Math.max(1, Math.min(8, Math.floor(Math.min(760 / S.cols, 600 / S.rows))));
-    [1, 2, 3, 4, 6, 8, 12, 16].forEach(function (z) { zoom.appendChild(el("option", { value: String(z), text: z + "x" })); });
+    // default zoom: the largest whole factor that fits the window (at least 1 CSS px per pixel)
+    var z0 = Math.max(1, Math.min(8, Math.floor(Math.min((window.innerWidth - 60) / S.cols, (window.innerHeight - 140) / S.rows))));
+    [1, 2, 3, 4, 5, 6, 7, 8, 10, 12, 16].forEach(function (z) { zoom.appendChild(el("option", { value: String(z), text: z + "x" })); });
     zoom.value = String(z0);
     zoom.addEventListener("change", function () { setZoom(S, +zoom.value); });
     tools.appendChild(el("label", null, " zoom ", zoom));
@@ -802,7 +810,7 @@
     S.offctx = S.off.getContext("2d"); S.img = S.offctx.createImageData(S.cols, S.rows);
     canvas.addEventListener("mousedown", function (e) { onDown(S, e); });
     canvas.addEventListener("mousemove", function (e) { onMove(S, e); });
-    window.addEventListener("mouseup", function (e) { if (S.draft || S.grab) onUp(S, e); });
+    window.addEventListener("mouseup", function (e) { if (S.draft || S.grab || S.press) onUp(S, e); });
     canvas.addEventListener("click", function (e) { onClick(S, e); });
     canvas.addEventListener("dblclick", function (e) { if (S.draft && S.draft.tool === "polygon") { e.preventDefault(); S.draft.hover = null; finishDraft(S); } });
     canvas.addEventListener("mouseleave", function () { S.readout.textContent = ""; });
@@ -830,7 +838,7 @@
     S.readout = el("div", { cls: "readout" });
     S.live = el("div", { cls: "live" });
     S.msg = el("div", { cls: "msg" });
-    var imgcol = el("div", { cls: "imgcol" }, tools, el("div", { cls: "wrap" }, canvas), scaleRow, S.readout, S.live, S.msg);
+    var imgcol = el("div", { cls: "imgcol" }, tools, el("div", { cls: "wrap" }, canvas), scaleRow, S.readout, S.live, S.msg, info);
     S.pinList = el("ul", { cls: "findings" });
     S.tbody = el("tbody");
     var table = el("table", null, el("thead", null, el("tr", null,
@@ -868,24 +876,28 @@
     var app = document.getElementById("app");
     app.textContent = "";
     if (D.title) document.title = D.title + " - irpipe inspect";
+    // a compact head, so that the first image sits near the top of the window
     var top = el("div", { cls: "top" });
-    top.appendChild(el("h1", { text: D.title || D.config_name }));
-    if (D.site) top.appendChild(el("p", { cls: "muted", text: D.site }));
-    top.appendChild(el("p", { text: "Survey file: " + D.config_name + ". Point at the image to read temperature, emissivity and expanded uncertainty (k = 2) of the pixel under the pointer." }));
-    var notes = el("ul", { cls: "notes" });
-    D.notes.forEach(function (n) { notes.appendChild(el("li", { text: n })); });
-    top.appendChild(notes);
-    top.appendChild(el("p", { cls: "muted", text: "How a drag becomes a region: a rectangle's corners snap to the nearest pixel edges (rect [row0, col0, row1, col1], " +
-      "half-open: rows row0 to row1-1); an ellipse fills the dragged box, with centre and radii in pixel-centre coordinates; a polygon's vertices are the centres of the clicked pixels " +
-      "(double-click or Enter to close it, Escape to cancel). A pixel belongs to a polygon when its centre is inside or on the outline, to an ellipse when its centre is inside, as irpipe run counts it." }));
     var dl = el("button", { type: "button", text: "Download the updated survey file" });
     dl.addEventListener("click", function () {
       var blob = new Blob([surveyYaml()], { type: "text/yaml" });
       var a = el("a", { href: URL.createObjectURL(blob), download: D.config_name.replace(/\.ya?ml$/i, "") + ".edited.yaml" });
       document.body.appendChild(a); a.click(); a.remove();
     });
-    top.appendChild(el("p", null, dl, " Save it beside the original " + D.config_name + ": its file paths are relative to that folder and stay valid only there. " +
-      "Only the regions, emissivity and the keys that name a renamed or deleted region are rewritten; comments and the order of everything else are kept."));
+    top.appendChild(el("div", { cls: "head" }, el("h1", { text: D.title || D.config_name }),
+      el("span", { cls: "muted", text: D.site ? D.site + " \u00b7 " + D.config_name : D.config_name }), dl,
+      el("span", { cls: "muted", text: "save it beside the original " + D.config_name + " (its paths are relative to that folder)" })));
+    var about = el("details", { cls: "about" }, el("summary", { text: "About this page: reading, drawing, writing back" }));
+    var notes = el("ul", { cls: "notes" });
+    D.notes.forEach(function (n) { notes.appendChild(el("li", { text: n })); });
+    about.appendChild(notes);
+    about.appendChild(el("p", { text: "Point at an image to read row, column, temperature, the emissivity used at that pixel and the expanded uncertainty (k = 2), " +
+      "all of the mean frame. Read mode: a click pins a reading, a drag draws a rectangle. How a drag becomes a region: a rectangle's corners snap to the nearest pixel edges (rect [row0, col0, row1, col1], " +
+      "half-open: rows row0 to row1-1); an ellipse fills the dragged box, with centre and radii in pixel-centre coordinates; a polygon's vertices are the centres of the clicked pixels " +
+      "(double-click or Enter to close it, Escape to cancel). A pixel belongs to a polygon when its centre is inside or on the outline, to an ellipse when its centre is inside, as irpipe run counts it." }));
+    about.appendChild(el("p", { text: "The downloaded survey file must be saved beside the original " + D.config_name + ": its file paths are relative to that folder and stay valid only there. " +
+      "Only the regions, the emissivity and the keys that name a renamed or deleted region are rewritten; comments and the order of everything else are kept." }));
+    top.appendChild(about);
     app.appendChild(top);
     D.stacks.forEach(function (d) { var S = makeStack(d); STACKS.push(S); BY_NAME[S.name] = S; });
     STACKS.forEach(function (S) { buildStack(S, app); });
