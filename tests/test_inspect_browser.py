@@ -176,8 +176,9 @@ def test_set_surface_then_run_matches_numpy_and_truth(drv, tmp_path):
     text = edited.read_text()
     assert text.startswith("# pane survey") and "  site: test bench   # a trailing comment" in text
     assert "# keep me" in text
+    from irpipe.cli import main
+    assert main(["validate", str(edited)]) == 0
     c = load_config(edited)
-    plan(c, tmp_path / "unused")                              # irpipe validate
     res = run(edited, tmp_path / "out2", write_report=False)
     temp = tifffile.imread(tmp_path / "out2" / "pane.temperature.tif").astype(np.float64)
     mean = np.nanmean(temp, axis=0)
@@ -187,6 +188,8 @@ def test_set_surface_then_run_matches_numpy_and_truth(drv, tmp_path):
         vals = temp[:, m]
         assert regions[r["name"]]["mean_c"] == pytest.approx(np.nanmean(vals), abs=1e-4)
         assert regions[r["name"]]["pixels"] == m.sum()
+        assert regions[r["name"]]["min_c"] == pytest.approx(np.nanmin(vals), abs=1e-6)
+        assert regions[r["name"]]["max_c"] == pytest.approx(np.nanmax(vals), abs=1e-6)
         # the page predicted what the run gives
         assert abs(page_stats[r["name"]]["mean_c"] - np.nanmean(vals)) < 0.01, r["name"]
     for (r, c_), o in pix.items():
