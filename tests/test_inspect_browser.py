@@ -381,3 +381,24 @@ def test_a_drag_in_the_default_mode_draws_a_rectangle_and_a_click_pins(drv, demo
     sec = canvas.find_element(By.XPATH, "./ancestor::section")
     assert len(drv.execute_script("return window.irpipe.regions('rear-elevation')")) == n0 + 1
     assert any(li.text.startswith("row 10, col 10:") for li in sec.find_elements(By.CSS_SELECTOR, "ul.findings li"))
+
+
+def test_flow_style_survey_falls_back_to_a_complete_json_file(drv, tmp_path):
+    """A survey whose stacks are written in flow style cannot be edited line by line: the page
+    writes the whole survey as JSON (valid YAML), which irpipe reads unchanged."""
+    cfg, _ = pane_scene(tmp_path / "s")
+    t = cfg.read_text()
+    t = t[:t.index("stacks:")] + "stacks: [{name: pane, path: pane.tif, regions: [{name: wall, rect: [34, 2, 46, 60]}]}]\n" \
+        + t[t.index("output:"):]
+    cfg.write_text(t)
+    page, _ = write_page(cfg, tmp_path / "f.html")
+    open_page(drv, page)
+    drv.execute_script("window.irpipe.addRegion('pane', {name: 'x', rect: [1, 1, 5, 5]});"
+                       "window.irpipe.setSurface('pane', 'x', 0.8)")
+    text = drv.execute_script("return window.irpipe.surveyYaml()")
+    assert text.startswith("# written by irpipe inspect as JSON")
+    (cfg.parent / "e.yaml").write_text(text)
+    c = load_config(cfg.parent / "e.yaml")
+    assert c.data["stacks"][0]["conditions"]["emissivity"] == {"regions": {"x": 0.8}, "default": 0.95}
+    assert [r["name"] for r in c.data["stacks"][0]["regions"]] == ["wall", "x"]
+    assert c.data["survey"]["title"] == "Pane test"
