@@ -8,9 +8,10 @@ import numpy as np
 import pytest
 import tifffile
 
+from conftest import linear_camera_yaml
 from irpipe.cli import main
 
-GOOD_CAMERA = "camera: {spectral_band_um: [7.5, 14], calibration: {model: linear, gain: 300, offset_counts: 1000}}\n"
+GOOD_CAMERA = f"camera: {linear_camera_yaml()}\n"
 
 
 def _stack(path, frames=3, shape=(24, 32), value=20000):

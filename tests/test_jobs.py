@@ -8,13 +8,12 @@ import numpy as np
 import pytest
 import tifffile
 
+from conftest import linear_camera_yaml
 from irpipe.cli import main
 
 CONFIG = """
 survey: {{indoor_air_c: 20.0, outdoor_air_c: 1.0}}
-camera:
-  spectral_band_um: [7.5, 14.0]
-  calibration: {{model: linear, gain: 300.0, offset_counts: 1000.0}}
+camera: {camera}
 conditions: {{emissivity: 0.93, reflected_temperature_c: 2.0, air_temperature_c: 4.0, relative_humidity_pct: 70}}
 uncertainty: {{emissivity: 0.02, reflected_temperature_k: 2.0}}
 stacks:
@@ -41,7 +40,7 @@ def _survey(folder, n=5, bad=None):
                      f"regions: [{{name: r, rect: [2, 2, 12, 12]}}, {{name: foil, rect: [14, 14, 18, 18]}}], "
                      f"hotspots: {{above_reference_k: 0.5, reference: median}}}}")
     p = folder / "survey.yaml"
-    p.write_text(CONFIG.format(stacks="\n".join(lines)))
+    p.write_text(CONFIG.format(camera=linear_camera_yaml(), stacks="\n".join(lines)))
     return p
 
 

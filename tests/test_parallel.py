@@ -9,72 +9,7 @@ import tifffile
 
 from irpipe import parallel, pipeline, runner
 from irpipe.config import load_config
-from irpipe.io import StackReader, StackWriter
-
-ROWS, COLS, FRAMES = 40, 56, 23
-
-CONFIG = """
-survey: {{indoor_air_c: 20.0, outdoor_air_c: 1.0, indoor_relative_humidity_pct: 55}}
-camera:
-  spectral_band_um: [7.5, 14.0]
-  input: counts
-  calibration: {{model: linear, gain: 300.0, offset_counts: 1000.0}}
-conditions:
-  emissivity:
-    labels: labels.tif
-    values: {{1: brick-common, 2: glass-uncoated, 3: galvanised-steel-weathered}}
-  reflected_temperature_c: -8.0
-  air_temperature_c: 1.0
-  distance_m: 5
-  atmosphere: {{transmittance: 0.97}}
-stacks:
-  - name: wall
-    path: wall.tif
-    assessment: envelope
-    regions:
-      - {{name: field, rect: [20, 2, 38, 30]}}
-      - {{name: pane, ellipse: {{center: [12, 40], radii: [6, 10]}}}}
-      - {{name: gable, polygon: [[0, 28], [10, 2], [10, 54]]}}
-      - {{name: overlap, rect: [8, 20, 30, 50]}}
-    hotspots: {{above_reference_k: 1.0, reference: median, min_area_px: 2}}
-    coldspots: {{below_reference_k: 1.0, reference: field, min_area_px: 2}}
-output: {{frame_chunk: {chunk}, formats: {formats}}}
-{extra}"""
-
-PER_PIXEL = """
-uncertainty: {emissivity: 0.02, reflected_temperature_k: 2.0, camera_k: 0.5}
-"""
-
-
-def make_survey(folder, chunk=5, formats="[tiff]", per_pixel=False, uncertainty=False):
-    """A small raw stack with label emissivity, drifting hot spot, saturated and
-    below-range pixels (invalid by two reasons), and its config."""
-    rng = np.random.default_rng(11)
-    r, c = np.mgrid[0:ROWS, 0:COLS]
-    labels = np.ones((ROWS, COLS), np.uint8)
-    labels[6:18, 30:50] = 2
-    labels[0:3, :] = 3
-    base = 17000 + 40 * np.sin(r / 7.0) + 30 * np.cos(c / 9.0)
-    frames = []
-    for k in range(FRAMES):
-        hot = 900 * np.exp(-(((r - 25 - k % 5) / 2.0) ** 2 + ((c - 15) / 2.0) ** 2))
-        x = base + hot + rng.normal(0, 11, base.shape)
-        f = np.rint(x).astype(np.uint16)
-        if k % 4 == 1:
-            f[30, 40] = 65535          # saturated
-        if k % 6 == 2:
-            f[5, 5] = 900              # below the calibration range
-        frames.append(f)
-    tifffile.imwrite(folder / "wall.tif", np.array(frames), photometric="minisblack")
-    tifffile.imwrite(folder / "labels.tif", labels)
-    p = folder / "survey.yaml"
-    text = CONFIG.format(chunk=chunk, formats=formats, extra=PER_PIXEL if (per_pixel or uncertainty) else "")
-    if per_pixel:   # reflector method: per-frame reflected temperature, the per-pixel plan
-        text = text.replace("reflected_temperature_c: -8.0", "reflected_temperature_c: {reflector: foil}")
-        text = text.replace("      - {name: overlap,", "      - {name: foil, rect: [30, 44, 36, 52], role: reflector}\n"
-                                                   "      - {name: overlap,")
-    p.write_text(text)
-    return p
+from irpipe.io import StackReader
 
 
 def _stack_report(res):
@@ -84,18 +19,18 @@ def _stack_report(res):
 
 
 @pytest.fixture(scope="module")
-def survey(tmp_path_factory):
+def survey(tmp_path_factory, small_survey):
     folder = tmp_path_factory.mktemp("survey")
-    cfg = make_survey(folder)
+    cfg = small_survey(folder)
     plain = pipeline.run(cfg, folder / "plain", quiet=True)
     return folder, cfg, plain
 
 
-def test_plain_run_counts_invalid_pixels_by_reason(survey):
+def test_plain_run_counts_invalid_pixels_by_reason(survey, small_survey):
     _, _, plain = survey
     inv = _stack_report(plain)["invalid_pixels"]
-    assert inv["saturated"] == len(range(1, FRAMES, 4))
-    assert inv["outside_calibration_range"] == len(range(2, FRAMES, 6))
+    assert inv["saturated"] == len(range(1, small_survey.frames, 4))
+    assert inv["outside_calibration_range"] == len(range(2, small_survey.frames, 6))
 
 
 def test_threaded_stream_equals_one_thread_loop(survey, tmp_path):
@@ -114,23 +49,23 @@ def test_threaded_stream_equals_one_thread_loop(survey, tmp_path):
 
 @pytest.mark.parametrize("per_pixel, with_u", [(False, False), (False, True), (True, True)],
                          ids=["lookup", "lookup+uncertainty", "per-pixel+uncertainty"])
-def test_local_cluster_run_equals_plain_run(survey, tmp_path, per_pixel, with_u):
+def test_local_cluster_run_equals_plain_run(survey, small_survey, tmp_path, per_pixel, with_u):
     distributed = pytest.importorskip("distributed")
     folder, cfg, plain = survey
     if with_u and not per_pixel:
         folder = tmp_path / "lu"
         folder.mkdir()
-        cfg = make_survey(folder, uncertainty=True)
+        cfg = small_survey(folder, uncertainty=True)
         plain = pipeline.run(cfg, folder / "plain", quiet=True)
         rep = _stack_report(plain)
         assert rep["plan"] == "lookup" and "uncertainty" in rep["outputs"]
     if per_pixel:
         folder = tmp_path / "pp"
         folder.mkdir()
-        cfg = make_survey(folder, per_pixel=True)
+        cfg = small_survey(folder, per_pixel=True)
         plain = pipeline.run(cfg, folder / "plain", quiet=True)
         rep = _stack_report(plain)
-        assert rep["plan"] == "per-pixel" and len(rep["reflected_temperature_series_c"]) == FRAMES
+        assert rep["plan"] == "per-pixel" and len(rep["reflected_temperature_series_c"]) == small_survey.frames
         assert "uncertainty" in rep["outputs"]
     with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=False,
                                   dashboard_address=None) as cluster:
@@ -242,37 +177,6 @@ def test_stream_chain_keeps_frame_order_in_every_stage():
     assert done == list(range(3, 301, 3))
 
 
-def test_reader_fast_path_and_fallbacks_agree(tmp_path):
-    rng = np.random.default_rng(2)
-    data = rng.integers(0, 65535, (9, 7, 5)).astype(np.uint16)
-    tifffile.imwrite(tmp_path / "contig.tif", data, photometric="minisblack")
-    tifffile.imwrite(tmp_path / "zlib.tif", data, photometric="minisblack", compression="zlib")
-    with tifffile.TiffWriter(tmp_path / "pages.tif") as tw:      # IFDs between the pages
-        for f in data:
-            tw.write(f, contiguous=False, photometric="minisblack")
-    with tifffile.TiffWriter(tmp_path / "big.tif", byteorder=">") as tw:
-        tw.write(data, photometric="minisblack")
-    for name, fast in (("contig", True), ("zlib", False), ("pages", True), ("big", False)):
-        with StackReader(tmp_path / f"{name}.tif") as r:
-            assert r.shape == data.shape
-            np.testing.assert_array_equal(r.read(0, 9), data)
-            np.testing.assert_array_equal(r.read(2, 7), data[2:7])
-            assert (r._page_offsets() is not None) == fast, name
-
-
-def test_writer_chunks_make_one_series(tmp_path):
-    a = np.random.default_rng(3).normal(size=(11, 6, 8)).astype(np.float32)
-    w = StackWriter(tmp_path / "t.tif", a.shape, '{"units": "degC"}')
-    for s in range(0, 11, 4):
-        w.write(a[s:s + 4])
-    w.commit()
-    with tifffile.TiffFile(tmp_path / "t.tif") as t:
-        assert len(t.series) == 1 and t.series[0].shape == a.shape
-        assert t.pages[0].description == '{"units": "degC"}'
-        np.testing.assert_array_equal(t.asarray(), a)
-    assert [p.name for p in tmp_path.iterdir()] == ["t.tif"]
-
-
 def test_picture_histogram_from_table_counts_equals_binning_pixels(survey, tmp_path):
     from irpipe.report import picture_from_tiff
 
@@ -321,7 +225,7 @@ def test_lookup_and_per_pixel_plans_give_the_same_temperatures(survey, tmp_path)
     assert _stack_report(res)["invalid_pixels"] == _stack_report(plain)["invalid_pixels"]
 
 
-def test_field_command_reads_the_signal_the_run_corrects(survey):
+def test_field_command_reads_the_signal_the_run_corrects(survey, small_survey):
     """measure_regions (irpipe emissivity) runs the stack's own chain: the region signal it
     returns, put through the measurement equation with the stack's emissivity, gives the
     run's frame-averaged temperatures (equal in signal units; frames averaged in signal)."""
@@ -336,7 +240,7 @@ def test_field_command_reads_the_signal_the_run_corrects(survey):
     eps = material_emissivity("brick-common", load_materials(load_config(cfg)))
     t_mean_signal = m["model"].object_temperature(sig, eps, m["reflected_temperature_k"],
                                                   m["air_temperature_k"]) - ZERO_CELSIUS
-    temp = tifffile.imread(folder / "plain" / "wall.temperature.tif")[:, 20:38, 2:30].reshape(FRAMES, -1)
+    temp = tifffile.imread(folder / "plain" / "wall.temperature.tif")[:, 20:38, 2:30].reshape(small_survey.frames, -1)
     # the run's temperatures turned back into signal and averaged over frames
     model = m["model"]
     g_refl, path = model.background(eps, m["reflected_temperature_k"], m["air_temperature_k"])
@@ -358,13 +262,13 @@ def test_field_command_reads_the_signal_the_run_corrects(survey):
      "a reflector of emissivity 0.6 is not a reflector"),
 ], ids=["spot-without-threshold", "relative-without-reference", "unknown-electrical-reference",
         "reflector-emissivity"])
-def test_validate_rejects_late_config_errors(tmp_path, edit, key):
+def test_validate_rejects_late_config_errors(tmp_path, edit, key, small_survey):
     """Each error a stage could once raise mid-run is caught by `irpipe validate`: one
     line naming the file and key, exit 2, and `irpipe run` writes no output."""
     import subprocess
     import sys
 
-    cfg = make_survey(tmp_path)
+    cfg = small_survey(tmp_path)
     text = cfg.read_text()
     assert edit[0] in text
     cfg.write_text(text.replace(edit[0], edit[1]))

@@ -7,9 +7,7 @@ import tifffile
 from irpipe.pipeline import run
 
 CONFIG = """
-camera:
-  spectral_band_um: [7.5, 14.0]
-  calibration: {{model: linear, gain: 300.0, offset_counts: 1000.0}}
+camera: {camera}
 conditions:
   emissivity: {emissivity}
   reflected_temperature_c: 5.0
@@ -25,7 +23,7 @@ output: {{frame_chunk: 32, report: false}}
 
 
 @pytest.mark.parametrize("plan", ["lookup", "per-pixel"])
-def test_percentiles_of_a_600_frame_stack_match_numpy(tmp_path, plan):
+def test_percentiles_of_a_600_frame_stack_match_numpy(tmp_path, plan, camera_yaml):
     """Done-when figure of the restructuring: P05 and P95 of a 600-frame stack agree within
     0.01 K with numpy.percentile (default, linear) over the valid values of the written
     arrays (the method's bound is half a 0.01 K bin)."""
@@ -43,7 +41,7 @@ def test_percentiles_of_a_600_frame_stack_match_numpy(tmp_path, plan):
     else:
         tifffile.imwrite(tmp_path / "eps.tif", np.full((24, 32), 0.93, np.float32))
         eps = "{map: eps.tif}"
-    (tmp_path / "s.yaml").write_text(CONFIG.format(emissivity=eps))
+    (tmp_path / "s.yaml").write_text(CONFIG.format(camera=camera_yaml, emissivity=eps))
     res = run(tmp_path / "s.yaml", tmp_path / "out", quiet=True)
     st = res.report["stacks"][0]
     assert st["plan"] == plan
