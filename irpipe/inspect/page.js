@@ -408,6 +408,8 @@
   function setSurface(name, region, value) {
     var S = stackOf(name);
     findRegion(S, region);
+    if (typeof value === "string" && !Object.prototype.hasOwnProperty.call(D.materials, value) && value.trim() !== "" && isFinite(Number(value)))
+      value = Number(value);                      // a number typed as text
     if (value === null || value === undefined || value === "") delete S.assign[region];
     else if (typeof value === "number") {
       if (!(value > 0 && value <= 1)) throw new Error("emissivity " + value + " is not in (0, 1]" + (value > 1 && value <= 100 ? "; did you mean " + value / 100 + "?" : ""));
