@@ -183,6 +183,10 @@ def prepare_stack(cfg: Config, i: int, out_dir: Path, cameras: dict, materials, 
         _prepare_maps(ctx, cfg, key, cam)
         _prepare_regions(ctx, cfg, key, st)
         _prepare_conditions(ctx, cfg, key, cond)
+        if "heat_flow" in st or "frame_times" in st:
+            from .heatprep import prepare_heat_flow
+            with _where(cfg, key):
+                prepare_heat_flow(ctx, cfg)
     except BaseException:
         reader.close()
         raise
@@ -230,6 +234,7 @@ def _prepare_conditions(ctx, cfg, key, cond):
         ctx.emissivity = resolve_emissivity(cfg, ekey[:-1], cond["emissivity"], ctx.shape[1:], ctx.materials)
     # oblique views: stack-wide angle, replaced by a region's own angle for its pixels;
     # metals (emissivity < 0.5) are left as they are (irpipe.emissivity.apply_view_angles)
+    ctx.shared["emissivity_normal"] = ctx.emissivity     # before view-angle scaling (heat flow)
     region_angles = [(n, ctx.masks[n], r["view_angle_deg"]) for n, r in ctx.region_cfg.items()
                      if r.get("view_angle_deg") is not None]
     if "view_angle_deg" in cond or region_angles:
@@ -356,6 +361,10 @@ def _inputs_of(cfg: Config, i: int, cam=None):
     files += [r["mask"] for r in st.get("regions", []) if "mask" in r]
     if "materials" in cfg.data:
         files.append(cfg.data["materials"])
+    if "file" in (st.get("frame_times") or {}):
+        files.append(st["frame_times"]["file"])
+    if "frame_times" in st and "air_log" in cfg.data.get("survey", {}):
+        files.append(cfg.data["survey"]["air_log"])
     return files
 
 

@@ -93,8 +93,9 @@ def registry():
     from .electrical import ElectricalStage
     from .picture import PictureStage
     from .dataset import DatasetWriterStage
+    from .heatflow import HeatFlowStage
 
-    return [BadPixelStage, RadiometricStage, UncertaintyStage, RegionStatsStage, SpotStage,
+    return [BadPixelStage, RadiometricStage, UncertaintyStage, RegionStatsStage, HeatFlowStage, SpotStage,
             PictureStage, EnvelopeStage, ElectricalStage, DatasetWriterStage, TemperatureWriterStage]
 
 
