@@ -94,7 +94,7 @@ def _tune_allocator():
 def _dispatch(args):
     if args.command == "schema":
         from .config import json_schema
-        print(json.dumps(json_schema(), indent=2))
+        _print_or_quiet_pipe(json.dumps(json_schema(), indent=2))
         return 0
     if args.command == "validate":
         from pathlib import Path
@@ -121,8 +121,21 @@ def _dispatch(args):
     return 1
 
 
+def _print_or_quiet_pipe(text):
+    """Print to stdout; a reader that closes the pipe early (``irpipe schema | head``) ends
+    the output quietly."""
+    import os
+    try:
+        print(text)
+        sys.stdout.flush()
+    except BrokenPipeError:
+        # stdout is gone: point it at devnull so the interpreter's final flush is quiet too
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+
+
 def _summary(res):
-    done = [s for s in res.report["stacks"] if s.get("status") == "done"]
+    done = [s for s in res.report["stacks"] if s.get("status") == "done" and s["name"] not in res.skipped]
     print(f"irpipe: {len(done)} stack(s) processed, {len(res.skipped)} unchanged and skipped, "
           f"{len(res.failed)} failed; outputs in {res.out_dir}")
     for name, msg, _ in res.failed:

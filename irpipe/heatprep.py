@@ -64,8 +64,8 @@ def _times_of(st, frames, base):
 
 
 def prepare_heat_flow(ctx, cfg):
-    """Fill ``ctx.shared["heat_flow_inputs"]`` (heat_flow stacks) and, where an air log
-    covers the frames, ``ctx.shared["air_log_mean_c"]`` = (indoor, outdoor) time-weighted
+    """Fill ``ctx.heat_flow_inputs`` (heat_flow stacks) and, where an air log
+    covers the frames, ``ctx.air_log_mean_c`` = (indoor, outdoor) time-weighted
     means over the frames (used by the envelope findings)."""
     st = ctx.stack
     frames = ctx.shape[0]
@@ -93,7 +93,7 @@ def prepare_heat_flow(ctx, cfg):
                     setattr(inp, attr, np.interp(inp.seconds, log_s[ok], v[ok], left=np.nan, right=np.nan))
         inp.has_log, inp.log_file = True, f.name
         w = inp.durations
-        ctx.shared["air_log_mean_c"] = (float(np.average(inp.indoor_c, weights=w)),
+        ctx.air_log_mean_c = (float(np.average(inp.indoor_c, weights=w)),
                                         float(np.average(inp.outdoor_c, weights=w)))
     hfc = st.get("heat_flow")
     if hfc is None:
@@ -105,7 +105,7 @@ def prepare_heat_flow(ctx, cfg):
                          "estimate")
     _window(inp, hfc, cfg, ctx.name)
     _footprint(inp, ctx, hfc)
-    ctx.shared["heat_flow_inputs"] = inp
+    ctx.heat_flow_inputs = inp
 
 
 def _window(inp, hfc, cfg, name):
@@ -138,7 +138,7 @@ def _window(inp, hfc, cfg, name):
 
 
 def _footprint(inp, ctx, hfc):
-    cam = ctx.shared.get("camera_cfg", {})
+    cam = ctx.camera_cfg
     cond = ctx.conditions
     angle = math.radians(cond.get("view_angle_deg") or 0.0)
     axis = hfc["tilt_axis"]

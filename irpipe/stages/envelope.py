@@ -13,21 +13,20 @@ from __future__ import annotations
 import numpy as np
 
 from .. import findings
+from ..defaults import BUILDING_USE, CRITICAL_TEMPERATURE_FACTORS
 from ..regions import local_linear_smooth
-from . import Stage
+from .base import Stage
 
-USE_KEYS = {"dwelling": "dwelling", "residential": "dwelling", "school": "school", "office": "office",
-            "retail": "retail", "storage": "storage", "sports-hall": "sports_hall", "kitchen": "kitchen",
-            "swimming-pool": "swimming_pool", "laundry": "laundry"}
 
 
 class EnvelopeStage(Stage):
     name = "envelope"
+    requires = ("ctx.picture",)
 
     @classmethod
     def applies(cls, ctx):
         s = ctx.cfg.data.get("survey", {})
-        air = ("indoor_air_c" in s and "outdoor_air_c" in s) or "air_log_mean_c" in ctx.shared
+        air = ("indoor_air_c" in s and "outdoor_air_c" in s) or ctx.air_log_mean_c is not None
         return (air and ctx.masks
                 and ctx.stack.get("assessment") != "electrical" and ctx.stack.get("view_from", "inside") == "inside")
 
@@ -35,13 +34,13 @@ class EnvelopeStage(Stage):
 
     def finish(self, ctx):
         s = ctx.cfg.data["survey"]
-        log_mean = ctx.shared.get("air_log_mean_c")     # air log's mean over the frames (heat flow)
+        log_mean = ctx.air_log_mean_c     # air log's mean over the frames (heat flow)
         ti, te = log_mean if log_mean else (s["indoor_air_c"], s["outdoor_air_c"])
         rh = s.get("indoor_relative_humidity_pct")
         crit_default = s.get("critical_temperature_factor")
         if crit_default is None:
-            crit_default = findings.CRITICAL_TEMPERATURE_FACTORS[USE_KEYS[s.get("building_use", "dwelling")]]
-        mean = ctx.shared["picture"]["mean_c"].astype(np.float64)
+            crit_default = CRITICAL_TEMPERATURE_FACTORS[s.get("building_use", BUILDING_USE)]
+        mean = ctx.picture.mean_c.astype(np.float64)
         for r in ctx.report.get("regions", []):
             m = ctx.masks[r["name"]]
             cfg = ctx.region_cfg[r["name"]]

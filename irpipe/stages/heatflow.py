@@ -24,7 +24,7 @@ from .. import __version__
 from .. import heatflow as hf
 from ..constants import ZERO_CELSIUS as K0
 from ..io import StackWriter, write_tiff_atomic
-from . import Stage
+from .base import Stage
 
 U_WARN_RELATIVE = 0.30          # warn above 30 % relative expanded uncertainty (issue 11)
 HC_RELATIVE_UNCERTAINTY = 0.30  # default u(h_c): inside h_c from natural-convection correlations
@@ -48,14 +48,17 @@ ENERGY_CAUTION = ("In-situ U-values, psi-values and heat losses are estimates un
 
 class HeatFlowStage(Stage):
     name = "heat_flow"
+    requires = ("chunk.temperature_c", "chunk.reflected_temperature_k", "report.regions", "ctx.heat_flow_inputs",
+                "ctx.emissivity_normal", "ctx.model")
+    provides = ("ctx.u_value_map",)
 
     @classmethod
     def applies(cls, ctx):
-        return "heat_flow" in ctx.stack and ctx.shared.get("heat_flow_inputs") is not None
+        return "heat_flow" in ctx.stack and ctx.heat_flow_inputs is not None
 
     # -- setup -------------------------------------------------------------------------------
     def start(self, ctx):
-        self.inp = ctx.shared["heat_flow_inputs"]
+        self.inp = ctx.heat_flow_inputs
         self.cfg = ctx.stack["heat_flow"]
         self.side = self.cfg["side"]
         f, m, n = ctx.shape
@@ -68,13 +71,13 @@ class HeatFlowStage(Stage):
         self.ref_mean = np.full(f, np.nan)        # reference region mean per frame [C]
         self.img_mean = np.full(f, np.nan)
         self.ref_idx = np.flatnonzero(ctx.masks[self.ref]) if self.ref else None
-        self.spill_path = ctx.out_dir / f".{ctx.name}.heat-flow-spill.tmp"
+        self.spill_path = ctx.out_dir / f".{ctx.name}.heat-flow-spill.part"
         ctx.out_dir.mkdir(parents=True, exist_ok=True)
         self.spill = np.memmap(self.spill_path, np.float32, "w+", shape=self.shape)
 
     def _hemispherical(self, ctx):
         shape = self.shape[1:]
-        normal = ctx.shared.get("emissivity_normal", ctx.emissivity).as_array(shape).astype(np.float64)
+        normal = (ctx.emissivity_normal or ctx.emissivity).as_array(shape).astype(np.float64)
         ratio = self.cfg["hemispherical_ratio"]
         spec = self.cfg.get("hemispherical_emissivity")
         if spec is None:
@@ -114,7 +117,7 @@ class HeatFlowStage(Stage):
         if "radiant_temperature_c" in self.cfg:
             self.tr_k[:] = self.cfg["radiant_temperature_c"] + K0
             return f"{self.cfg['radiant_temperature_c']:g} C (heat_flow.radiant_temperature_c)"
-        refl = ctx.shared.get("reflected_temperature_k")
+        refl = ctx.reflected_temperature_k
         if refl is not None:
             self.tr_k[:] = refl
             return f"the stack's reflected temperature {refl - K0:g} C"
@@ -125,7 +128,7 @@ class HeatFlowStage(Stage):
         t = chunk.temperature_c
         a, b = chunk.first, chunk.first + chunk.n
         self.spill[a:b] = t
-        refl = chunk.extras.get("reflected_temperature_k")
+        refl = chunk.reflected_temperature_k
         if refl is not None and np.isnan(self.tr_k[a:b]).any():
             self.tr_k[a:b] = np.asarray(refl, float)
         flat = t.reshape(chunk.n, -1)
@@ -209,7 +212,7 @@ class HeatFlowStage(Stage):
         fw = StackWriter(ctx.out_dir / flux_name, self.shape, json.dumps(meta),
                          fsync=ctx.cfg.data["output"].get("fsync", False))
         self._writers = [fw]
-        size = int(ctx.options.get("frame_chunk") or 32)
+        size = ctx.frame_chunk
         for a in range(0, f, size):
             b = min(f, a + size)
             t = np.asarray(self.spill[a:b], np.float64) + offset[a:b, None, None] + K0
@@ -274,7 +277,7 @@ class HeatFlowStage(Stage):
         model = ctx.model
         ta = ctx.conditions["air_temperature_c"] + K0
         tr = float(np.nanmean(self.tr_k)) if self.side == "inside" else float(
-            ctx.shared.get("reflected_temperature_k") or np.nanmean(self.tr_k))
+            ctx.reflected_temperature_k or np.nanmean(self.tr_k))
         eps_n = min(max(eps_n, 0.02), 0.999)
         s = model.received_signal(t_k, eps_n, tr, ta)
         h = 1e-3
@@ -487,7 +490,7 @@ class HeatFlowStage(Stage):
         }
         ctx.report["thermal_bridges"] = bridges
         ctx.report.setdefault("warnings", []).extend(warnings)
-        ctx.shared["heat_flow_picture"] = {"u_map": u_map.astype(np.float32)}
+        ctx.u_value_map = u_map.astype(np.float32)
 
 
 def _sig(x, digits=6):
