@@ -554,6 +554,8 @@ HEAT_FLOW = Mapping(keys={
     "radiant_temperature_c": Celsius(lo=-120.0, hi=100.0, help="radiant temperature the surface exchanges with "
                                      "[C]; outside: sky and ground (required without a log column); inside: "
                                      "default the stack's reflected temperature"),
+    "radiant_temperature_uncertainty_k": Number(lo=0.0, hi=50.0, help="u(T_r) of this stack's radiant temperature "
+                                                "[K]; default uncertainty.reflected_temperature_k"),
     "reference": String(help="region of undisturbed wall: U_ref for thermal bridges, contact-sensor region"),
     "contact_surface_c": Celsius(lo=-60.0, hi=100.0, help="contact-sensor reading on the reference region "
                                  "(mean over the window) [C]; removes the camera's absolute offset"),
@@ -571,7 +573,16 @@ HEAT_FLOW = Mapping(keys={
     "areal_heat_capacity_kj_m2k": Number(lo=0.0, lo_open=True, hi=5000.0,
                                          help="areal heat capacity of the element [kJ/(m2 K)] for the ISO 9869-1 "
                                               "stored-heat criterion"),
-}, help="in-situ U-value, thermal-bridge psi and annual heat loss from a time-lapse stack (ISO 9869-1 average method)")
+}, help="in-situ U-value, thermal-bridge psi and annual heat loss from a time-lapse stack (ISO 9869-1 average "
+        "method). Modes: inside (default) q = h_c (theta_ai - theta_si) + eps_h sigma (T_r^4 - T_si^4), U = sum q dt / "
+        "sum (theta_ai - theta_ae) dt, h_c default 2.5 (ISO 6946 Annex C), T_r the reflected temperature; outside "
+        "q = h_c (theta_se - theta_ae) + eps_h sigma (T_se^4 - T_sky^4), h_c = 4 + 4 v, needs radiant_temperature_c, "
+        "night frames only by default, less reliable. With survey.air_log and frame_times: time series, ISO 9869-1 "
+        "criteria (72 h, +-5 % vs 24 h earlier, first/last INT(2D/3) days, stored heat). Without a log: constant "
+        "survey air temperatures, single-time estimate, criteria not evaluable. Without frame_times: equal frame "
+        "weights, no window. Outputs: <name>.u_value.tif (rows, cols) W/(m2 K), <name>.heat_flux.tif (frames, rows, "
+        "cols) W/m2; per region area_m2, heat_flux_w_m2, u_value_w_m2k, u_value_expanded_uncertainty_w_m2k, "
+        "u_value_converged, annual_heat_loss_kwh; per stack heat_flow {...} and thermal_bridges [...]")
 
 STACK = Mapping(keys={
     "name": String(),

@@ -67,6 +67,10 @@ HEAVY_CAPACITY_J_M2K = 20e3
 STORED_HEAT_TOLERANCE = 0.05
 DAY_S = 86400.0
 
+ENERGY_CAUTION = ("In-situ U-values, psi-values and heat losses are estimates under the logged conditions and the "
+                  "stated surface coefficients; design values and decisions (retrofit, compliance, cost) rest with "
+                  "a qualified energy assessor.")
+
 
 # --- surface coefficients (ISO 6946 Annex C) ---------------------------------------------
 

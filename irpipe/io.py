@@ -592,3 +592,13 @@ def remove_stale_parts(folder, before: float) -> list:
         except OSError:
             pass
     return removed
+
+
+def read_u_value_map(path):
+    """A written ``<name>.u_value.tif`` as (M, N) float32, or None if it cannot be read
+    (a picture is not worth failing the report for)."""
+    try:
+        with StackReader(path, "U-value map") as r:
+            return r.read(0, 1)[0].astype(np.float32)
+    except (InputDataError, OSError):
+        return None

@@ -23,6 +23,7 @@ import numpy as np
 from .. import __version__
 from .. import heatflow as hf
 from ..constants import ZERO_CELSIUS as K0
+from ..heatflow import ENERGY_CAUTION
 from ..io import StackWriter, write_tiff_atomic
 from .base import Stage
 
@@ -41,9 +42,6 @@ OUTSIDE_METHOD = ("outside surface: q = h_c (theta_se - theta_ae) + eps_h sigma 
                   "sum (theta_ai - theta_env,e) dt, normalised by the outdoor environmental temperature "
                   "(h_c, h_r weighted, ISO 9869-1); LESS RELIABLE than the inside method (wind, sky radiation, "
                   "night frames only)")
-ENERGY_CAUTION = ("In-situ U-values, psi-values and heat losses are estimates under the logged conditions and the "
-                  "stated surface coefficients; design values and decisions (retrofit, compliance, cost) rest with "
-                  "a qualified energy assessor.")
 
 
 class HeatFlowStage(Stage):
@@ -258,7 +256,8 @@ class HeatFlowStage(Stage):
     # -- per region and per stack ------------------------------------------------------------------
     def _uncertainty_inputs(self, ctx, offset_desc):
         sec = ctx.cfg.data.get("uncertainty") or {}
-        u = {"radiant": float(sec.get("reflected_temperature_k", 0.0)),
+        u = {"radiant": float(self.cfg.get("radiant_temperature_uncertainty_k",
+                                           sec.get("reflected_temperature_k", 0.0))),
              "indoor_air": float(sec.get("indoor_air_k", AIR_SENSOR_K)),
              "outdoor_air": float(sec.get("outdoor_air_k", AIR_SENSOR_K))}
         hc_mean = float(np.mean(self.h_c))
@@ -384,9 +383,11 @@ class HeatFlowStage(Stage):
                     f"region '{name}': U = {u_val:.3f} +- {u_exp:.3f} W/(m2 K) (k = 2), {100 * rel:.0f} % relative "
                     f"expanded uncertainty, above 30 %. The surface is only {diff:.2f} K below the "
                     f"{'indoor air' if self.side == 'inside' else 'reference'}: a few tenths of a kelvin of camera "
-                    "or emissivity error change U by tens of per cent. Use a contact sensor on the reference "
-                    "region (heat_flow.contact_surface_c) and a longer, colder survey, or treat the figure as an "
-                    "order of magnitude only.")
+                    "or emissivity error change U by tens of per cent. "
+                    + ("Log the contact sensor more closely, survey longer and colder, or treat the figure as an "
+                       "order of magnitude only." if offset_desc else
+                       "Use a contact sensor on the reference region (heat_flow.contact_surface_c) and a longer, "
+                       "colder survey, or treat the figure as an order of magnitude only."))
         # thermal bridges
         bridges = []
         ref = self.ref
