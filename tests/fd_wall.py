@@ -34,7 +34,11 @@ BRIDGE_WALL = [PLASTER, (0.10, 0.77, 1750.0, 840.0), BRICK_LEAF]
 
 
 class Wall:
-    def __init__(self, layers, h_c=2.5, eps_h=0.9, h_e=25.0, dx=0.005):
+    def __init__(self, layers, h_c=2.5, eps_h=0.9, h_e=25.0, dx=0.005, outside=None):
+        """``outside``: None for one combined coefficient ``h_e`` to the outdoor air, or
+        (h_ce, eps_e, sky_c) for convection plus exact T^4 radiation to a sky/ground
+        temperature ``sky_c(t)`` [C] at the outside surface (massless node)."""
+        self.outside = outside
         k, cap, dxs = [], [], []
         for d, lam, rho, c in layers:
             n = max(2, int(round(d / dx)))
@@ -48,12 +52,14 @@ class Wall:
         self.g = 1.0 / (self.dx[:-1] / (2 * self.k[:-1]) + self.dx[1:] / (2 * self.k[1:]))
         self.g_in = 2 * self.k[0] / self.dx[0]
         self.g_out = 1.0 / (self.dx[-1] / (2 * self.k[-1]) + 1.0 / h_e)
+        self.g_last = 2 * self.k[-1] / self.dx[-1]
 
     def surface_flux(self, ts, ta, tr):
         return self.h_c * (ta - ts) + self.eps_h * SIGMA * (tr ** 4 - ts ** 4)
 
     def steady_u(self, ti_c, te_c, tr_c=None):
-        """In-situ U = q / (theta_ai - theta_ae) in steady state, exact radiation."""
+        """In-situ U = q / (theta_ai - theta_ae) in steady state, exact radiation
+        (combined outside coefficient)."""
         ta, te = ti_c + K0, te_c + K0
         tr = ta if tr_c is None else tr_c + K0
         r_rest = self.r_wall + 1.0 / self.h_e
@@ -73,6 +79,8 @@ class Wall:
         x_res = np.concatenate([[0.0], np.cumsum(self.dx / self.k)])[:-1] + self.dx / (2 * self.k)
         temp = ti0 + K0 - q * (0.13 + x_res)
         ts = temp[0] + 0.0
+        tse = temp[-1] + 0.0
+        self.outside_surface = []
         steps_per_sample = int(round(sample_every_s / dt_s))
         times, out = [], []
         nsteps = int(round((t_end_s + spinup_s) / dt_s))
@@ -81,6 +89,7 @@ class Wall:
             if t >= -1e-9 and (s - int(round(spinup_s / dt_s))) % steps_per_sample == 0 and t < t_end_s - 1e-9:
                 times.append(t)
                 out.append(ts - K0)
+                self.outside_surface.append(tse - K0)
             if s == nsteps:
                 break
             tn = t + dt_s
@@ -99,15 +108,28 @@ class Wall:
                 diag[:-1] += self.g
                 diag[1:] += self.g
                 diag[0] += g_eff
-                diag[-1] += self.g_out
+                if self.outside is None:
+                    g_o, b_o = self.g_out, self.g_out * te
+                else:
+                    # outside surface: g_last (T_N - tse) = h_ce (tse - te) + eps_e sigma (tse^4 - tsky^4)
+                    h_ce, eps_e, sky = self.outside
+                    tsky = sky(tn) + K0
+                    hre = 4 * eps_e * SIGMA * tse ** 3
+                    src_e = h_ce * te + eps_e * SIGMA * (tsky ** 4 - tse ** 4) + hre * tse
+                    a_e = h_ce + hre
+                    g_o = self.g_last * a_e / (a_e + self.g_last)
+                    b_o = self.g_last * src_e / (a_e + self.g_last)
+                diag[-1] += g_o
                 ab[0, 1:] = -self.g
                 ab[1] = diag
                 ab[2, :-1] = -self.g
                 rhs = self.cap / dt_s * temp
                 rhs[0] += b_eff
-                rhs[-1] += self.g_out * te
+                rhs[-1] += b_o
                 new = solve_banded((1, 1), ab, rhs)
                 ts = (src + self.g_in * new[0]) / (a_s + self.g_in)
+                if self.outside is not None:
+                    tse = (src_e + self.g_last * new[-1]) / (a_e + self.g_last)
             temp = new
         return np.array(times), np.array(out)
 

@@ -210,3 +210,29 @@ def test_night_mask():
     frames = ts.regular_times(dt.datetime(2026, 1, 10, 18, 0), 3600, 14)
     m = ts.night_mask(frames)
     assert [f.hour for f, k in zip(frames, m) if k] == [20, 21, 22, 23, 0, 1, 2, 3, 4, 5]
+
+
+def test_outside_method_converges_with_environmental_temperature():
+    # outside surface: convection h_ce = 4 + 4 v (v = 1 m/s) and exact radiation to a sky
+    # 6 K below the outdoor air (FD wall, tests/fd_wall.py). Truth: U of the wall between the
+    # indoor air and the outdoor environmental temperature, U = 1 / (R_si + R_wall + R_se)
+    # with R_se = 1 / (h_ce + h_re) (ISO 6946 / ISO 9869-1 environmental temperature [M]);
+    # tolerance 5 %: the linearised h_re at the mean temperature (common practice)
+    outdoor = periodic(2.0, 3.0)
+    sky = lambda t: outdoor(t) - 6.0
+    w = Wall(SOLID_BRICK_WALL, h_c=2.5, eps_h=0.9, outside=(8.0, 0.9, sky))
+    t, tsi = w.run(72 * 3600.0, 300.0, lambda t: 20.0, outdoor, spinup_s=5 * 86400.0)
+    tse = np.array(w.outside_surface) + K0
+    hc = float(hf.convective_coefficient_outside(1.0))
+    q = hf.heat_flux_outside(tse, outdoor(t) + K0, sky(t) + K0, hc, 0.9)
+    hr = hf.radiative_coefficient(0.9, 0.5 * (tse + sky(t) + K0))
+    dT = 20.0 + K0 - hf.environmental_temperature(outdoor(t) + K0, sky(t) + K0, hc, hr)
+    u = hf.average_method(q, dT, hf.frame_weights(t))
+    r_si = 1.0 / (2.5 + float(hf.radiative_coefficient(0.9, 292.0)))
+    r_se = 1.0 / (hc + float(hf.radiative_coefficient(0.9, 273.15 + 1.0)))
+    assert u == pytest.approx(1.0 / (r_si + w.r_wall + r_se), rel=0.05)
+    # and the inside method on the same wall, normalised by the air-to-air difference,
+    # does not equal it: the sky makes the air-to-air U larger (physics, no source)
+    qi = hf.heat_flux_inside(tsi + K0, 293.15, 293.15, 2.5, 0.9)
+    ui = hf.average_method(qi, 20.0 - outdoor(t), hf.frame_weights(t))
+    assert ui > u

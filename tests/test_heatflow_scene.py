@@ -209,3 +209,81 @@ def test_single_time_estimate_without_log(scene, tmp_path):
     r = _region(st, "brick")
     assert r["u_value_converged"] is False
     assert all(c["met"] is None for c in r["u_value_criteria"])
+
+
+def test_irregular_frame_times_from_file(scene, tmp_path):
+    # frames listed in a times file with a 2-hour gap (four frames missing): each frame
+    # stands for its interval, so the frame before the gap weighs 2.5 h; U stays within 5 %
+    # of the truth (issue 11: time-weighted sums)
+    d, truth = scene
+    keep = [k for k in range(FRAMES) if not 60 <= k < 64]
+    stack = tifffile.imread(d / "wall.tif")[keep]
+    tifffile.imwrite(tmp_path / "wall.tif", stack, photometric="minisblack")
+    (tmp_path / "air.csv").write_bytes((d / "air.csv").read_bytes())
+    times = ["time"] + [(START + dt.timedelta(minutes=30 * k)).isoformat() for k in keep]
+    (tmp_path / "times.csv").write_text("\n".join(times) + "\n")
+    p = _config(tmp_path)
+    p.write_text(p.read_text().replace(f'frame_times: {{start: "{START.isoformat()}", interval_s: 1800}}',
+                                       "frame_times: {file: times.csv}"))
+    st = run(p, tmp_path / "out").report["stacks"][0]
+    assert st["heat_flow"]["duration_h"] == pytest.approx(72.0)
+    assert _region(st, "brick")["u_value_w_m2k"] == pytest.approx(truth["brick"], rel=0.05)
+    # a times file with the wrong number of rows is an input-data error naming the file
+    (tmp_path / "times.csv").write_text("\n".join(times[:-1]) + "\n")
+    with pytest.raises(InputDataError, match=r"times.csv: 139 frame time\(s\) for a stack of 140 frame"):
+        run(p, tmp_path / "out2")
+
+
+def test_outside_side_uses_night_frames(scene, tmp_path):
+    # outside method: night frames only by default (20:00-06:00, common practice) and marked
+    # as less reliable; the scene is an inside wall, so only the bookkeeping is checked
+    d, _ = scene
+    for f in ("wall.tif", "air.csv"):
+        (tmp_path / f).write_bytes((d / f).read_bytes())
+    p = _config(tmp_path, extra_hf=", radiant_temperature_c: -5.0")
+    p.write_text(p.read_text().replace("side: inside", "side: outside"))
+    st = run(p, tmp_path / "out").report["stacks"][0]
+    hours = [(START + dt.timedelta(minutes=30 * k)).hour for k in range(FRAMES)]
+    assert st["heat_flow"]["frames_used"] == sum(h >= 20 or h < 6 for h in hours)
+    assert "LESS RELIABLE" in st["heat_flow"]["method"]
+
+
+def test_config_cross_checks(scene, tmp_path):
+    from irpipe.config import load_config
+    d, _ = scene
+    (tmp_path / "wall.tif").write_bytes(b"")
+    (tmp_path / "air.csv").write_text("time,indoor_air_c,outdoor_air_c\n")
+    p = _config(tmp_path)
+    text = p.read_text()
+    p.write_text(text.replace(f'    frame_times: {{start: "{START.isoformat()}", interval_s: 1800}}\n', ""))
+    with pytest.raises(ConfigError, match=r"stacks\[0\]: survey.air_log is matched to frame times"):
+        load_config(p)
+    p.write_text(text.replace("reference: insulated, ", ""))
+    with pytest.raises(ConfigError, match=r"stacks\[0\].heat_flow: thermal_bridge regions need heat_flow.reference"):
+        load_config(p)
+    p.write_text(text.replace(f"  ifov_mrad: {IFOV_MRAD}\n", ""))
+    with pytest.raises(ConfigError, match=r"heat_flow needs the pixel size on the wall: set camera.ifov_mrad"):
+        load_config(p)
+    p.write_text(text.replace("interval_s: 1800", "interval_s: 1800, start2: 1"))
+    with pytest.raises(ConfigError, match=r"frame_times.start2: unknown key"):
+        load_config(p)
+
+
+def test_report_html_and_csv(result):
+    # the heat-flow section and its caution are in the HTML; regions.csv gains the U columns
+    st, _, d = result
+    from irpipe.report import write_all
+    report = json.loads((d / "out" / "report.json").read_text())
+    u = tifffile.imread(d / "out" / st["outputs"]["u_value"])
+    out = d / "html"
+    out.mkdir(exist_ok=True)
+    write_all(out, report, {"wall": {"mean_c": u * 0 + 19.0, "first_c": u * 0 + 19.0, "hist_edges_c": np.array([]),
+                                     "hist_counts": np.array([], np.int64), "masks": {}, "u_value_map": u}})
+    html = (out / "report.html").read_text()
+    assert "Heat loss (in-situ U-value)" in html and "qualified energy assessor" in html
+    assert "Cumulative average U" in html and "ISO 9869-1 criteria" in html
+    head = (out / "regions.csv").read_text().splitlines()[0].split(",")
+    assert head[-10:] == ["area_m2", "heat_flux_w_m2", "u_value_w_m2k", "u_value_expanded_uncertainty_w_m2k",
+                          "u_value_converged", "annual_heat_loss_kwh", "annual_heat_cost", "psi_w_mk",
+                          "bridge_length_m", "excess_annual_heat_loss_kwh"]
+    assert any("qualified energy assessor" in c for c in report["cautions"])
