@@ -109,10 +109,80 @@ def _report_picture(ctx, out_dir, outputs):
     return pic
 
 
+@dataclass
+class _Outcome:
+    """What a stack's run leaves behind (small: no arrays but the report picture)."""
+
+    index: int
+    name: str
+    ok: bool
+    report: dict | None = None
+    error: Exception | None = None
+    fingerprint: str | None = None
+    hashes: dict | None = None
+    outputs: dict = field(default_factory=dict)
+    picture: dict | None = None
+
+
+_WORKER = {}
+
+
+def _worker_state(config_path):
+    """Per-process config, camera models and material library (a job process runs many
+    stacks; they are built once per process)."""
+    key = str(config_path)
+    if _WORKER.get("key") != key:
+        cfg = load_config(config_path)
+        _WORKER.clear()
+        _WORKER.update(key=key, cfg=cfg, cameras={}, materials=load_materials(cfg))
+    return _WORKER["cfg"], _WORKER["cameras"], _WORKER["materials"]
+
+
+def _run_one(cfg, cameras, materials, i, out, options, progress=None, want_picture=True) -> _Outcome:
+    """Prepare and run stack ``i`` into ``out``; hashes its inputs alongside."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    name = cfg.data["stacks"][i]["name"]
+    # hashing a large stack costs about as much as reading it: do it on the side while the
+    # stack is processed (hashlib releases the GIL)
+    with ThreadPoolExecutor(1) as pool:
+        pending = pool.submit(hash_files, stack_inputs(cfg, i))
+        try:
+            t0 = time.perf_counter()
+            ctx = prepare_stack(cfg, i, out, cameras, materials, options)
+            rep = run_stack(ctx, progress)
+            rep["seconds"] = round(time.perf_counter() - t0, 3)
+        except IrpipeError as exc:
+            return _Outcome(i, name, False, error=exc, hashes=pending.result())
+        hashes = pending.result()
+    pic = _report_picture(ctx, out, ctx.outputs) if want_picture else None
+    return _Outcome(i, name, True, report=rep, fingerprint=stack_fingerprint(cfg, i, hashes), hashes=hashes,
+                    outputs=dict(ctx.outputs), picture=pic)
+
+
+def _job(config_path, i, stage_dir, options, want_picture):
+    """One stack in a job process, into its own staging folder."""
+    cfg, cameras, materials = _worker_state(config_path)
+    Path(stage_dir).mkdir(parents=True, exist_ok=True)
+    return _run_one(cfg, cameras, materials, i, Path(stage_dir), dict(options, quiet=True), None, want_picture)
+
+
+def default_jobs() -> int:
+    """Stack processes by default: the machine's cores."""
+    import os
+    return max(1, len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1))
+
+
 def run(config_path, out_dir=None, *, resume=False, keep_going=False, quiet=True, workers=None,
-        scheduler=None, write_report=True, frame_chunk=None) -> RunResult:
+        scheduler=None, write_report=True, frame_chunk=None, jobs=None) -> RunResult:
     """Run a survey config; returns a RunResult. Raises ConfigError / InputDataError when
-    the run cannot start or (without ``keep_going``) a stack fails."""
+    the run cannot start or (without ``keep_going``) a stack fails.
+
+    ``jobs``: stacks processed at once in separate processes (default: one; the command
+    line defaults to the machine's cores). Outputs, manifest, report and exit code are
+    those of the serial run: each job writes into a staging folder and its outputs are
+    moved into place in config order, so that without ``keep_going`` a failed stack leaves
+    no output of the stacks after it."""
     started = time.time()
     cfg = load_config(config_path)
     out = Path(out_dir) if out_dir else (cfg.base_dir / cfg.data["output"]["dir"])
@@ -127,75 +197,144 @@ def run(config_path, out_dir=None, *, resume=False, keep_going=False, quiet=True
     manifest = {"software": "irpipe", "version": __version__, "config": str(cfg.path.name),
                 "config_sha256": sha256(cfg.path), "started_utc": now_utc(), "stacks": []}
     results, failed, skipped, pictures = [], [], [], {}
-    progress = _progress(quiet)
-    try:
-        for item in checked:
-            if isinstance(item, tuple):
-                i, exc = item
-                name = cfg.data["stacks"][i]["name"]
-                failed.append((name, str(exc), exc))
-                manifest["stacks"].append({"name": name, "status": "failed", "error": str(exc)})
-                results.append({"name": name, "status": "failed", "error": str(exc)})
+    draw = write_report and cfg.data["output"].get("report", True)
+
+    # (1) decide per stack: failed at the check, unchanged (--resume), or to run
+    todo = []
+    for item in checked:
+        if isinstance(item, tuple):
+            todo.append(("checkfail", item[0], item[1]))
+            continue
+        i, name = item.index, item.name
+        prev = old_stacks.get(name)
+        if resume and prev and prev.get("status") == "done":
+            fp = stack_fingerprint(cfg, i, hash_files(stack_inputs(cfg, i)))
+            if prev.get("fingerprint") == fp and all((out / f).exists() for f in prev.get("outputs", {}).values()):
+                todo.append(("skip", i, prev))
                 continue
-            i, name = item.index, item.name
-            item = None                 # keep nothing of the check: the stack is prepared anew
-            files = stack_inputs(cfg, i)
-            prev = old_stacks.get(name)
-            pending = hashes = None
-            if resume and prev and prev.get("status") == "done":
-                hashes = hash_files(files)
-                fp = stack_fingerprint(cfg, i, hashes)
-                if prev.get("fingerprint") == fp and all((out / f).exists() for f in prev.get("outputs", {}).values()):
-                    skipped.append(name)
-                    manifest["stacks"].append(prev)
-                    results.append(prev["report"])
-                    if write_report:
-                        ctx = prepare_stack(cfg, i, out, cameras, materials, options, with_model=False)
-                        pic = _report_picture(ctx, out, prev.get("outputs"))
-                        if pic is not None:
-                            pictures[name] = pic
+        todo.append(("run", i, None))
+    checked = None                      # keep nothing of the check: each stack is prepared anew
+
+    def settle(o: _Outcome):
+        """Record a finished stack in config order; raise when the run must stop."""
+        if o.ok:
+            manifest["stacks"].append({"name": o.name, "status": "done", "fingerprint": o.fingerprint,
+                                       "inputs": o.hashes, "outputs": o.outputs, "report": o.report})
+            results.append(o.report)
+            if o.picture is not None:
+                pictures[o.name] = o.picture
+            return
+        failed.append((o.name, str(o.error), o.error))
+        manifest["stacks"].append({"name": o.name, "status": "failed", "error": str(o.error), "inputs": o.hashes})
+        if not keep_going:
+            write_manifest(out, manifest, old_manifest, partial=True)
+            raise o.error
+        results.append({"name": o.name, "status": "failed", "error": str(o.error)})
+
+    def settle_other(kind, i, extra):
+        name = cfg.data["stacks"][i]["name"]
+        if kind == "checkfail":
+            failed.append((name, str(extra), extra))
+            manifest["stacks"].append({"name": name, "status": "failed", "error": str(extra)})
+            results.append({"name": name, "status": "failed", "error": str(extra)})
+            return
+        skipped.append(name)
+        manifest["stacks"].append(extra)
+        results.append(extra["report"])
+        if draw:
+            ctx = prepare_stack(cfg, i, out, cameras, materials, options, with_model=False)
+            pic = _report_picture(ctx, out, extra.get("outputs"))
+            if pic is not None:
+                pictures[name] = pic
+
+    n_run = sum(1 for k, _, _ in todo if k == "run")
+    jobs = max(1, int(jobs or 1))
+    if scheduler and n_run > 1:
+        # a survey of many stacks on a cluster: whole stacks are the unit of work; the
+        # workers read the inputs and write into the (shared) output folder
+        _run_jobs(cfg, todo, out, dict(options, scheduler=None, workers=None), jobs, draw, settle, settle_other,
+                  quiet, scheduler=scheduler)
+    elif jobs > 1 and n_run > 1 and not (workers or scheduler):
+        _run_jobs(cfg, todo, out, options, jobs, draw, settle, settle_other, quiet)
+    else:
+        progress = _progress(quiet)
+        try:
+            for kind, i, extra in todo:
+                if kind != "run":
+                    settle_other(kind, i, extra)
                     continue
-            else:
-                # hashing a large stack costs about as much as reading it: do it on the side
-                # while the stack is processed (hashlib releases the GIL)
-                from concurrent.futures import ThreadPoolExecutor
-                pool = ThreadPoolExecutor(1)
-                pending = pool.submit(hash_files, files)
-                pool.shutdown(wait=False)
-            try:
-                t0 = time.perf_counter()
-                ctx = prepare_stack(cfg, i, out, cameras, materials, options)
-                rep = run_stack(ctx, progress)
-                rep["seconds"] = round(time.perf_counter() - t0, 3)
-            except IrpipeError as exc:
-                hashes = pending.result() if pending is not None else hashes
-                failed.append((name, str(exc), exc))
-                manifest["stacks"].append({"name": name, "status": "failed", "error": str(exc), "inputs": hashes})
-                if not keep_going:
-                    write_manifest(out, manifest, old_manifest, partial=True)
-                    raise
-                results.append({"name": name, "status": "failed", "error": str(exc)})
-                continue
-            if pending is not None:
-                hashes = pending.result()
-                fp = stack_fingerprint(cfg, i, hashes)
-            manifest["stacks"].append({"name": name, "status": "done", "fingerprint": fp, "inputs": hashes,
-                                       "outputs": dict(ctx.outputs), "report": rep})
-            results.append(rep)
-            if write_report:
-                pic = _report_picture(ctx, out, ctx.outputs)
-                if pic is not None:
-                    pictures[name] = pic
-            ctx = None
-    finally:
-        if progress is not None:
-            progress.close()
+                settle(_run_one(cfg, cameras, materials, i, out, options, progress, draw))
+        finally:
+            if progress is not None:
+                progress.close()
     report = build_report(cfg, results)
     if write_report:
-        write_reports(out, report, pictures, draw=cfg.data["output"].get("report", True))
+        write_reports(out, report, pictures, draw=draw)
     manifest["finished_utc"] = now_utc()
     write_manifest(out, manifest, old_manifest)
     return RunResult(report, failed, skipped, out)
+
+
+def _run_jobs(cfg, todo, out, options, jobs, draw, settle, settle_other, quiet, scheduler=None):
+    """Run the stacks of ``todo`` in ``jobs`` processes (or on the workers of the dask
+    cluster at ``scheduler``); settle them in config order and move each stack's outputs
+    from its staging folder into ``out`` as it is settled."""
+    import multiprocessing
+    import shutil
+    import tempfile
+    from concurrent.futures import ProcessPoolExecutor
+
+    stage_root = Path(tempfile.mkdtemp(prefix=".irpipe-jobs.", suffix=".part", dir=out))
+    # fork: the job processes start with irpipe already imported (no import per stack)
+    ctx = multiprocessing.get_context("fork") if "fork" in multiprocessing.get_all_start_methods() else None
+    bar = None
+    if not quiet and sys.stderr.isatty():
+        from tqdm import tqdm
+        bar = tqdm(total=sum(1 for k, _, _ in todo if k == "run"), desc="stacks", unit="stack", file=sys.stderr)
+    if scheduler:
+        try:
+            from distributed import Client
+        except ImportError as exc:
+            raise InputDataError(f"--scheduler needs dask.distributed ({exc}); install irpipe[cluster]") from None
+        pool = Client(scheduler, set_as_default=False)
+    else:
+        pool = ProcessPoolExecutor(max_workers=jobs, mp_context=ctx)
+    try:
+        futures = {}
+        for kind, i, _ in todo:
+            if kind == "run":
+                opts = {k: v for k, v in options.items()}
+                futures[i] = pool.submit(_job, str(cfg.path.resolve()), i, str(stage_root.resolve() / str(i)), opts,
+                                         draw, **({"pure": False} if scheduler else {}))
+        for kind, i, extra in todo:
+            if kind != "run":
+                settle_other(kind, i, extra)
+                continue
+            o = futures.pop(i).result()
+            if bar is not None:
+                bar.update(1)
+            if o.ok:
+                for f in o.outputs.values():
+                    dest = out / f
+                    if dest.is_dir() and not dest.is_symlink():
+                        shutil.rmtree(dest)
+                    (stage_root / str(i) / f).replace(dest)
+                if o.picture is not None:
+                    o.picture = None if not draw else o.picture
+            try:
+                settle(o)
+            except BaseException:
+                for fut in futures.values():
+                    fut.cancel()
+                raise
+    finally:
+        if scheduler:
+            pool.close()
+        else:
+            pool.shutdown(wait=True, cancel_futures=True)
+        if bar is not None:
+            bar.close()
+        shutil.rmtree(stage_root, ignore_errors=True)
 
 
 class _Progress:

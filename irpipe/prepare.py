@@ -14,13 +14,13 @@ import numpy as np
 from .config import Config, camera_key, condition_key, merged_camera, merged_conditions
 from .constants import STANDARD_PRESSURE, ZERO_CELSIUS
 from .correction import CameraModel, MeasurementModel
-from .defaults import TABLE_RANGE_C
+from .defaults import REFRACTIVE_INDEX, TABLE_RANGE_C
 from .emissivity import EmissivityField, material_emissivity
 from .errors import ConfigError, InputDataError
 from .io import StackReader, read_map, read_spectral_response
 from .radiometry import SpectralResponse
 from .regions import geometry_problem, region_mask
-from .stages.base import StackContext
+from .context import StackContext
 
 
 # --- shared survey-level objects ------------------------------------------------------
@@ -250,7 +250,7 @@ def _prepare_conditions(ctx, cfg, key, cond, with_model=True):
         from .emissivity import apply_view_angles
         ctx.emissivity, angle_warnings = apply_view_angles(
             ctx.emissivity, ctx.shape[1:], cond.get("view_angle_deg"), region_angles,
-            cond.get("refractive_index", 1.5))
+            cond.get("refractive_index", REFRACTIVE_INDEX))
         if angle_warnings:
             ctx.report.setdefault("warnings", []).extend(angle_warnings)
     refl = cond["reflected_temperature_c"]
