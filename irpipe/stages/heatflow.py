@@ -328,6 +328,10 @@ class HeatFlowStage(Stage):
                         elem = 0.5 * (s[1] + inp.indoor_c + K0 - ASSUMED_R_SI * q)
                     elem = np.where(np.isfinite(elem), elem, 0.0)
                 crit = hf.iso9869_criteria(inp.seconds, wr, np.where(use, q, 0.0), dT, cap, elem)
+                for c in crit:
+                    if c["name"] == "stored_heat" and c.get("stored_fraction") is not None:
+                        c["detail"] += ("; element temperature: mean of the measured surface and the other surface "
+                                        "estimated with R_s = 0.04 / 0.13 m2K/W (ISO 6946, from memory)")
                 cum = hf.cumulative_u(np.where(use, q, 0.0), dT, wr)
             else:
                 why = ("not evaluable: no air log, single-time (steady-state) estimate" if not inp.has_log
