@@ -54,6 +54,7 @@ def scene(tmp_path_factory):
     rows = ["time,indoor_air_c,outdoor_air_c"] + [f"{x.isoformat()},20.0,{outdoor(s):.4f}" for x, s in zip(lt, secs)]
     (d / "air.csv").write_text("\n".join(rows) + "\n")
     truth = {k: v[0] for k, v in walls.items()}
+    truth["ins_surface_c"] = float(walls["ins"][1].mean())     # regular frames: time mean = plain mean
     return d, truth
 
 
@@ -287,3 +288,20 @@ def test_report_html_and_csv(result):
                           "u_value_converged", "annual_heat_loss_kwh", "annual_heat_cost", "psi_w_mk",
                           "bridge_length_m", "excess_annual_heat_loss_kwh"]
     assert any("qualified energy assessor" in c for c in report["cautions"])
+
+
+def test_contact_sensor_removes_camera_offset(scene, tmp_path):
+    # a camera reading 0.4 K warm on every pixel (absolute offset): without correction the
+    # insulated wall's U is far off; a contact reading on the reference region (its true
+    # mean surface temperature from the FD wall) brings U back within 5 % (issue 11)
+    d, truth = scene
+    raw = tifffile.imread(d / "wall.tif")
+    tifffile.imwrite(tmp_path / "wall.tif", raw + np.uint16(40), photometric="minisblack")
+    (tmp_path / "air.csv").write_bytes((d / "air.csv").read_bytes())
+    st = run(_config(tmp_path), tmp_path / "out").report["stacks"][0]
+    assert abs(_region(st, "insulated")["u_value_w_m2k"] / truth["ins"] - 1) > 0.3
+    p = _config(tmp_path, extra_hf=f", contact_surface_c: {truth['ins_surface_c']:.4f}")
+    st = run(p, tmp_path / "out2").report["stacks"][0]
+    assert _region(st, "insulated")["u_value_w_m2k"] == pytest.approx(truth["ins"], rel=0.05)
+    assert _region(st, "brick")["u_value_w_m2k"] == pytest.approx(truth["brick"], rel=0.05)
+    assert "contact reading" in st["heat_flow"]["offset_correction"]
