@@ -99,8 +99,7 @@ class MeasurementModel:
         t = np.asarray(temperature, dtype=float)
         if self.flat:
             return np.broadcast_to(self.tau, t.shape).astype(float)
-        l_plain, l_tau = self.camera.response.band_radiances(t, [None, self.tau])
-        return l_tau / l_plain
+        return self.camera.response.weighted_transmittance(self.tau, t)
 
     def path_signal(self, temperature):
         """G(T) = S(T) tau_eff(T): signal of a blackbody at T after the path."""
@@ -114,14 +113,23 @@ class MeasurementModel:
                 + (1 - eps) * self.path_signal(reflected_temperature)
                 + self.camera.signal(air_temperature) - g_air)
 
-    def background(self, emissivity, reflected_temperature, air_temperature):
-        """(reflected term G(T_refl), path emission S(T_air) - G(T_air)) as float64 scalars/arrays."""
+    def background(self, emissivity, reflected_temperature, air_temperature, fast=False):
+        """(reflected term G(T_refl), path emission S(T_air) - G(T_air)) as float64 scalars/arrays.
+
+        ``fast=True`` reads G and S from the dense forward tables (``forward_fast``,
+        relative error ~1e-8) instead of one band integral per value: for many
+        temperatures at once, e.g. Monte Carlo trials.
+        """
+        if fast:
+            g_refl = self.path_table.forward_fast(reflected_temperature)
+            path = self.signal_table.forward_fast(air_temperature) - self.path_table.forward_fast(air_temperature)
+            return g_refl, path
         g_refl = self.path_signal(reflected_temperature)
         path = self.camera.signal(air_temperature) - self.path_signal(air_temperature)
         return g_refl, path
 
     def object_temperature(self, signal, emissivity, reflected_temperature, air_temperature,
-                           dtype=np.float64):
+                           dtype=np.float64, fast=False):
         """Solve the measurement equation per pixel.
 
         Parameters
@@ -133,12 +141,15 @@ class MeasurementModel:
             Scalars, or arrays broadcasting with ``signal`` (e.g. shape (F, 1, 1) per frame).
         dtype : numpy float type
             Working precision of the per-pixel arithmetic.
+        fast : bool
+            Background terms from the forward tables (see ``background``): for
+            reflected and air temperatures that vary per pixel or per trial.
 
         Returns
         -------
         temperature : ndarray [K]; NaN where no physical solution exists.
         """
-        g_refl, path = self.background(emissivity, reflected_temperature, air_temperature)
+        g_refl, path = self.background(emissivity, reflected_temperature, air_temperature, fast=fast)
         eps = np.asarray(emissivity, dtype=dtype)
         num = np.asarray(signal, dtype=dtype) - np.asarray(path, dtype=dtype)
         num -= (1 - eps) * np.asarray(g_refl, dtype=dtype)

@@ -169,21 +169,6 @@ def path_variant(base, transmittance):
     return MeasurementModel(base.camera, transmittance, base.t_range)
 
 
-def _solve_trials(model, signal, emissivity, reflected_temperature, air_temperature):
-    """Measurement equation solved for many trials with per-trial T_refl and T_air.
-
-    Same equation as ``MeasurementModel.object_temperature``, with G(T_refl), S(T_air)
-    and G(T_air) read from the models' dense forward tables (``forward_fast``, relative
-    error ~1e-8) instead of one band integral per trial.
-    """
-    eps = np.asarray(emissivity, float)
-    g_refl = model.path_table.forward_fast(reflected_temperature)
-    path = model.signal_table.forward_fast(air_temperature) - model.path_table.forward_fast(air_temperature)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        num = (np.asarray(signal, float) - path - (1 - eps) * g_refl) / eps
-    return model.path_table.inverse(num)
-
-
 def _as_cache(model_factory):
     return model_factory if isinstance(model_factory, ModelCache) else ModelCache(model_factory)
 
@@ -444,7 +429,8 @@ def monte_carlo_uncertainty(signal, emissivity, reflected_temperature, air_tempe
     out = np.empty((p, n))
     if not dependent:
         t_air = ta + u.air_temperature * rng.standard_normal((p, n))
-        out[:] = _solve_trials(base, s, eps, tr, t_air)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            out[:] = base.object_temperature(s, eps, tr, t_air, fast=True)
     else:
         g = int(max(1, min(path_draws, n)))
         state = np.empty((g, 3))
@@ -460,7 +446,8 @@ def monte_carlo_uncertainty(signal, emissivity, reflected_temperature, air_tempe
             cols = np.flatnonzero(group == k)
             m = models(*state[k])
             t_air = state[k, 0] if air_shared else t_air_trial[:, cols]
-            out[:, cols] = _solve_trials(m, s[:, cols], eps[:, cols], tr[:, cols], t_air)
+            with np.errstate(invalid="ignore", divide="ignore"):
+                out[:, cols] = m.object_temperature(s[:, cols], eps[:, cols], tr[:, cols], t_air, fast=True)
     ok = np.isfinite(out)
     mean = np.array([out[i, ok[i]].mean() if ok[i].any() else np.nan for i in range(p)])
     std = np.array([out[i, ok[i]].std(ddof=1) if ok[i].sum() > 1 else np.nan for i in range(p)])
