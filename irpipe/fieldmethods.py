@@ -40,13 +40,12 @@ import numpy as np
 from .calibration import (fit_linear, fit_sakuma_hattori, sakuma_hattori_signal, sakuma_hattori_temperature,
                           two_point_nuc)
 from .constants import ZERO_CELSIUS
-from .uncertainty import COVERAGE_FACTOR
+from .uncertainty import COVERAGE_FACTOR, STEPS, sensitivity
 
 # A surface closer than this to the reflected temperature leaves G(T) - G(T_refl) too
 # small for a useful emissivity (ASTM E1933 asks for a specimen temperature well away
 # from the reflected temperature; the 10 K figure is common practice, from memory).
 MIN_CONTRAST_K = 10.0
-STEP_K, STEP_EPS = 0.05, 1e-3
 
 
 # --- emissivity (ASTM E1933) -----------------------------------------------------------
@@ -214,19 +213,13 @@ def estimate_emissivity(surface_signal, reflected_temperature, air_temperature, 
     if not np.isfinite(t0):
         raise ValueError("the reference region's signal has no physical solution; check its emissivity and "
                          "the reflected temperature")
-    inputs = [("reflected_temperature", "tr", u_reflected_temperature, STEP_K),
-              ("camera", "dt_cam", u_camera, STEP_K)]
-    inputs += [("contact_temperature", "t_contact", u_contact, STEP_K)] if contact else \
-        [("reference_emissivity", "eps_ref", u_reference_emissivity, STEP_EPS)]
-    budget = {}
-    for name, key, u, h in inputs:
-        if not u:
-            continue
-        xp, xm = dict(x0), dict(x0)
-        xp[key] = x0[key] + h
-        xm[key] = x0[key] - h
-        c = (estimate(**xp) - estimate(**xm)) / (2 * h)
-        budget[name] = abs(c) * u
+    inputs = [("reflected_temperature", "tr", u_reflected_temperature),
+              ("camera", "dt_cam", u_camera)]
+    inputs += [("contact_temperature", "t_contact", u_contact)] if contact else \
+        [("reference_emissivity", "eps_ref", u_reference_emissivity)]
+    inputs = [(name, key, u) for name, key, u in inputs if u]
+    coef = sensitivity(lambda **one: estimate(**{**x0, **one}), x0, {key: STEPS[name] for name, key, _ in inputs})
+    budget = {name: abs(float(coef[key])) * u for name, key, u in inputs}
     eps_pix = emissivity_from_signal(s, t0, x0["tr"], air_temperature, model)
     scatter = float(np.std(eps_pix, ddof=1)) if s.size > 1 else 0.0
     budget["pixel_scatter"] = scatter
