@@ -28,7 +28,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from .calibration import sakuma_hattori_signal
-from .radiometry import MonotoneTable, SpectralResponse, node_temperatures
+from .modeltables import measurement_tables
+from .radiometry import SpectralResponse
 
 # reason codes for invalid pixels (uint8), shared by stages and reports
 VALID, SATURATED, OUT_OF_RANGE, NON_PHYSICAL, INVALID_INPUT = 0, 1, 2, 3, 4
@@ -81,18 +82,9 @@ class MeasurementModel:
         self.flat = tau.ndim == 0
         self.tau = tau
         self.t_range = (float(t_range[0]), float(t_range[1]))
-        # one Planck evaluation on the table nodes serves both tables
-        t_nodes = node_temperatures(*self.t_range)
-        r = camera.response
-        if self.flat:
-            s_nodes = camera.signal(t_nodes)
-            g_nodes = s_nodes * float(self.tau)
-        else:
-            l_plain, l_tau = r.band_radiances(t_nodes, [None, self.tau])
-            s_nodes = l_plain if camera.kind == "band" else camera.signal(t_nodes)
-            g_nodes = s_nodes * (l_tau / l_plain)
-        self.signal_table = MonotoneTable(camera.signal, *self.t_range, samples=s_nodes)
-        self.path_table = MonotoneTable(self.path_signal, *self.t_range, samples=g_nodes)
+        # one Planck evaluation on the table nodes per response serves every path, and
+        # equal conditions share their tables (irpipe.modeltables)
+        self.signal_table, self.path_table = measurement_tables(camera, self.tau, self.t_range, self.path_signal)
 
     def effective_transmittance(self, temperature):
         """tau_eff(T): band transmittance weighted by a blackbody at T [fraction]."""
