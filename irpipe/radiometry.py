@@ -15,6 +15,7 @@ References
 """
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -257,8 +258,17 @@ def _trapezoid_weights(x):
 
 
 def node_temperatures(t_min, t_max, n=4096):
-    """The dense sampling grid of MonotoneTable: 4n nodes uniform in 1/T, increasing T [K]."""
-    return 1.0 / np.linspace(1.0 / float(t_max), 1.0 / float(t_min), 4 * n)[::-1]
+    """The dense sampling grid of MonotoneTable: 4n nodes uniform in 1/T, increasing T [K].
+
+    Read-only, one array per grid: the tables of one range share it."""
+    return _node_grid(float(t_min), float(t_max), int(n))
+
+
+@functools.lru_cache(maxsize=16)
+def _node_grid(t_min, t_max, n):
+    nodes = 1.0 / np.linspace(1.0 / t_max, 1.0 / t_min, 4 * n)[::-1]
+    nodes.setflags(write=False)
+    return nodes
 
 
 class MonotoneTable:
