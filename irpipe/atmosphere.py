@@ -277,17 +277,11 @@ def band_transmittance(distance, air_temperature, relative_humidity, band=(7.5e-
 
     Parameters
     ----------
-    distance : array_like
-        Path length [m], 0 to 316 m; 0 gives exactly 1.
-    air_temperature : array_like
-        Air temperature along the path [K], 212-338 K.
-    relative_humidity : array_like
-        Relative humidity along the path [fraction 0-1].
+    distance, air_temperature, relative_humidity, pressure : array_like
+        The path, as for ``spectral_transmittance`` [m, K, fraction 0-1, Pa].
     band : (float, float), optional
         Rectangular band limits (lo, hi) [m]; ignored when ``response`` is given.
         Default 7.5-14 um.
-    pressure : array_like, optional
-        Total air pressure [Pa], 50-110 kPa; default 101325 Pa.
     source_temperature : float, optional
         Temperature of the blackbody whose spectrum weights the mean [K]; default 300 K.
     response : (array_like, array_like) or SpectralResponse, optional

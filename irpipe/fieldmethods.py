@@ -226,9 +226,9 @@ def estimate_emissivity(surface_signal, reflected_temperature, air_temperature, 
     uc = float(np.sqrt(sum(v * v for v in budget.values())))           # Eq. 10 of [3]
     warnings = []
     if abs(t0 - x0["tr"]) < MIN_CONTRAST_K:
-        warnings.append(f"the surface ({t0 - ZERO_CELSIUS:.1f} C) is only {abs(t0 - x0['tr']):.1f} K from the reflected "
-                        f"temperature ({x0['tr'] - ZERO_CELSIUS:.1f} C); below about {MIN_CONTRAST_K:g} K the method "
-                        "loses its sensitivity: heat or cool the specimen, or change the surroundings")
+        warnings.append(f"the surface ({t0 - ZERO_CELSIUS:.1f} C) is only {abs(t0 - x0['tr']):.1f} K from the "
+                        f"reflected temperature ({x0['tr'] - ZERO_CELSIUS:.1f} C); below about {MIN_CONTRAST_K:g} K "
+                        "the method loses its sensitivity: heat or cool the specimen, or change the surroundings")
     if not 0 < eps0 <= 1:
         warnings.append(f"the estimate {eps0:.3f} is outside (0, 1]: check the reflected temperature, the "
                         "reference emissivity and that both regions are at the same temperature")

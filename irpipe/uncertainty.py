@@ -304,8 +304,8 @@ def sensitivity_coefficients(signal, emissivity, reflected_temperature, air_temp
 
     def moved(camera=None, **one):
         v = dict(x, **one)
-        model = models(v["air_temperature"], v["relative_humidity"], v["distance"]) if one.keys() & set(PATH_INPUTS) \
-            else base
+        path_moved = bool(one.keys() & set(PATH_INPUTS))
+        model = models(v["air_temperature"], v["relative_humidity"], v["distance"]) if path_moved else base
         s_ = s if camera is None else base.signal_table.forward_fast(camera)
         return solve(model, s_, v["emissivity"], v["reflected_temperature"], v["air_temperature"])
 
