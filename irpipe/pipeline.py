@@ -99,7 +99,14 @@ def _report_picture(ctx, out_dir, outputs):
                 pic = picture_from_tiff(Path(out_dir) / f)
             except Exception:       # a picture is not worth failing the report for
                 pic = None
-    return None if pic is None else {**pic, "masks": dict(ctx.masks)}
+    if pic is None:
+        return None
+    pic = {**pic, "masks": dict(ctx.masks)}
+    if (outputs or {}).get("u_value"):      # heat flow: the U map for the report
+        from .io import read_u_value_map
+        pic["u_value_map"] = (ctx.u_value_map if ctx.u_value_map is not None
+                              else read_u_value_map(Path(out_dir) / outputs["u_value"]))
+    return pic
 
 
 @dataclass
@@ -211,7 +218,9 @@ def run(config_path, out_dir=None, *, resume=False, keep_going=False, quiet=True
     def settle(o: _Outcome):
         """Record a finished stack in config order; raise when the run must stop."""
         if o.ok:
+            from .fingerprint import pixel_fingerprint
             manifest["stacks"].append({"name": o.name, "status": "done", "fingerprint": o.fingerprint,
+                                       "pixel_fingerprint": pixel_fingerprint(cfg, o.index, o.hashes),
                                        "inputs": o.hashes, "outputs": o.outputs, "report": o.report})
             results.append(o.report)
             if o.picture is not None:
