@@ -37,11 +37,17 @@ def stack_inputs(cfg: Config, i: int, cam=None) -> list:
     if isinstance(cam.get("calibration"), dict) and "file" in cam["calibration"]:
         files.append(cam["calibration"]["file"])
     e = merged_conditions(cfg.data, i)["emissivity"]
+    if isinstance(e, dict) and "regions" in e:
+        e = e["default"]
     if isinstance(e, dict):
         files.append(e.get("map") or e.get("labels"))
     files += [r["mask"] for r in st.get("regions", []) if "mask" in r]
     if "materials" in cfg.data:
         files.append(cfg.data["materials"])
+    if "file" in (st.get("frame_times") or {}):
+        files.append(st["frame_times"]["file"])
+    if "frame_times" in st and "air_log" in cfg.data.get("survey", {}):
+        files.append(cfg.data["survey"]["air_log"])
     return files
 
 

@@ -95,7 +95,12 @@ def _report_picture(ctx, out_dir, outputs, entry=None):
     from .report import stack_pictures
 
     pic = ctx.picture.as_dict() if ctx.picture is not None else None
-    return stack_pictures(out_dir, ctx.name, outputs, pic, dict(ctx.masks), entry)
+    umap = None
+    if (outputs or {}).get("u_value"):      # heat flow: the U map for the report
+        from .io import read_u_value_map
+        umap = (ctx.u_value_map if ctx.u_value_map is not None
+                else read_u_value_map(Path(out_dir) / outputs["u_value"]))
+    return stack_pictures(out_dir, ctx.name, outputs, pic, dict(ctx.masks), entry, u_value_map=umap)
 
 
 @dataclass
@@ -207,7 +212,9 @@ def run(config_path, out_dir=None, *, resume=False, keep_going=False, quiet=True
     def settle(o: _Outcome):
         """Record a finished stack in config order; raise when the run must stop."""
         if o.ok:
+            from .fingerprint import pixel_fingerprint
             manifest["stacks"].append({"name": o.name, "status": "done", "fingerprint": o.fingerprint,
+                                       "pixel_fingerprint": pixel_fingerprint(cfg, o.index, o.hashes),
                                        "inputs": o.hashes, "outputs": o.outputs, "report": o.report})
             results.append(o.report)
             if o.picture is not None:

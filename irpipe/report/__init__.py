@@ -68,7 +68,10 @@ def _encoded(pic):
 
     if pic is None or "thermogram_png" in pic:
         return pic
-    return render_stack_pictures(pic, pic.get("masks"))
+    enc = render_stack_pictures(pic, pic.get("masks"))
+    if pic.get("u_value_map") is not None:          # heat flow: drawn by irpipe.report.heatflow
+        enc.update(u_value_map=pic["u_value_map"], masks=dict(pic.get("masks") or {}))
+    return enc
 
 
 def write_all(out_dir: Path, report: dict, pictures: dict) -> list[str]:
@@ -171,12 +174,15 @@ def _store_cache(out_dir, stacks, enc):
             continue
         try:         # a cache: written atomically but without fsync, and never worth failing for
             with atomic_path(_cache_file(out_dir, st.get("name")), fsync=False) as tmp:
-                tmp.write_text(dumps({**e, "entry_key": key}), encoding="utf-8")
+                # a heat-flow stack's U map and masks are not kept: the pipeline reads the map
+                # from the stack's outputs and the masks from the config
+                kept = {k: v for k, v in e.items() if k not in ("u_value_map", "masks")}
+                tmp.write_text(dumps({**kept, "entry_key": key}), encoding="utf-8")
         except OSError:
             pass
 
 
-def stack_pictures(out_dir, name, outputs, picture=None, masks=None, entry=None):
+def stack_pictures(out_dir, name, outputs, picture=None, masks=None, entry=None, u_value_map=None):
     """The encoded pictures of one finished stack (small; what the report keeps of it).
 
     Parameters
@@ -196,6 +202,9 @@ def stack_pictures(out_dir, name, outputs, picture=None, masks=None, entry=None)
         Region masks, {name: (M, N) bool}.
     entry : dict, optional
         The stack's report.json entry (of the earlier run, for a skipped stack).
+    u_value_map : ndarray of shape (M, N), optional
+        A heat-flow stack's in-situ U map [W/(m2 K)]: kept as it is, with the masks, for
+        the heat-flow section (``irpipe.report.heatflow``; not kept in the cache).
 
     Returns
     -------
@@ -205,10 +214,11 @@ def stack_pictures(out_dir, name, outputs, picture=None, masks=None, entry=None)
     """
     from .pictures import render_stack_pictures
 
+    extra = {} if u_value_map is None else {"u_value_map": u_value_map, "masks": dict(masks or {})}
     if picture is None and out_dir is not None:
         enc = _load_cached(out_dir, name, entry_key(entry)) if entry is not None else None
         if enc is not None:
-            return enc
+            return {**enc, **extra}
         f = (outputs or {}).get("temperature")
         if f and (Path(out_dir) / f).is_file():
             try:
@@ -217,7 +227,7 @@ def stack_pictures(out_dir, name, outputs, picture=None, masks=None, entry=None)
                 picture = None
     if picture is None:
         return None
-    return render_stack_pictures(picture, masks)
+    return {**render_stack_pictures(picture, masks), **extra}
 
 
 def picture_from_tiff(path, chunk=16):

@@ -427,6 +427,10 @@ def _stack_section(k, st, enc, findings, fig_no):
         out.append('<div class="box warn">No picture: the frame data of this stack were not available to the '
                    'report writer.</div>')
     out.append(_region_tables(st))
+    if st.get("heat_flow"):
+        from .heatflow import section
+        hf_html, fig_no = section(st, enc, fig_no)
+        out.append(hf_html)
     out.append("<h3>Findings</h3>")
     if mine:
         out.append(_table(["No.", "Finding", "Location", "Peak / lowest", "Difference", "Mean", "Area [px]",

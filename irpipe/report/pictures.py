@@ -109,7 +109,8 @@ def thermogram_indices(image, masks=None, rng=None, levels=MAX_LEVELS):
 
 def thumbnail(image, rng, levels=MAX_LEVELS, width=THUMB_WIDTH):
     """Block mean of the valid values (NaN where a block has none), at most ``width``
-    pixels wide, as palette indices of the same scale."""
+    pixels wide (a narrower picture enlarged by a whole factor), as palette indices of the
+    same scale."""
     img = np.asarray(image, np.float32)
     step = max(1, math.ceil(img.shape[1] / width))
     r, c = -(-img.shape[0] // step) * step, -(-img.shape[1] // step) * step
@@ -121,7 +122,9 @@ def thumbnail(image, rng, levels=MAX_LEVELS, width=THUMB_WIDTH):
     s = np.where(ok, b, 0).sum((1, 3), dtype=np.float64)
     with np.errstate(invalid="ignore", divide="ignore"):
         mean = np.where(n > 0, s / np.maximum(n, 1), np.nan)
-    return ct.to_indices(mean, *rng, levels) if rng else np.full(mean.shape, ct.INVALID, np.uint8)
+    idx = ct.to_indices(mean, *rng, levels) if rng else np.full(mean.shape, ct.INVALID, np.uint8)
+    up = max(1, width // idx.shape[1])           # a small picture: whole pixels, about ``width`` wide
+    return np.repeat(np.repeat(idx, up, 0), up, 1) if up > 1 else idx
 
 
 def render_stack_pictures(picture, masks=None) -> dict:

@@ -18,6 +18,7 @@ def registry():
     from .dataset import DatasetWriterStage
     from .electrical import ElectricalStage
     from .envelope import EnvelopeStage
+    from .heatflow import HeatFlowStage
     from .picture import PictureStage
     from .radiometric import RadiometricStage
     from .regionstats import RegionStatsStage
@@ -25,7 +26,7 @@ def registry():
     from .uncertainty import UncertaintyStage
     from .writer import TemperatureWriterStage
 
-    return [BadPixelStage, RadiometricStage, UncertaintyStage, RegionStatsStage, SpotStage,
+    return [BadPixelStage, RadiometricStage, UncertaintyStage, RegionStatsStage, HeatFlowStage, SpotStage,
             PictureStage, EnvelopeStage, ElectricalStage, DatasetWriterStage, TemperatureWriterStage]
 
 
