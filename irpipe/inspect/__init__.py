@@ -63,15 +63,16 @@ def page_budget(rows, cols, frames_carried, stacks=1):
                          + BUDGET_FIXED_BYTES) + BUDGET_FIXED_BYTES)
 
 
-def colour_table(name="inferno", n=256):
-    """The colour map as ``n`` RGB entries, hex text of 6 digits each ("rrggbb...").
+def colour_table(kind="sequential"):
+    """The report's colour table as 256 RGB entries, hex text of 6 digits each ("rrggbb...").
 
-    The report's temperature colour map (matplotlib ``inferno``, perceptually uniform).
+    From :mod:`irpipe.colourtable`, the one colour-table module of the report and the pages:
+    ``"sequential"`` for temperatures (``inferno``, perceptually uniform), ``"diverging"``
+    for differences.
     """
-    from matplotlib import colormaps
+    from ..colourtable import table
 
-    rgb = np.round(colormaps[name](np.linspace(0.0, 1.0, n))[:, :3] * 255).astype(np.uint8)
-    return rgb.tobytes().hex()
+    return table(kind).tobytes().hex()
 
 
 def _b64(a):
