@@ -18,8 +18,9 @@ shared tables) from the comparison; the whole-run ratio keeps it.
 
 Also measured, on the large survey:
 
-* peak RSS of all processes of the run together (the process and all its descendants,
-  summed; /proc polled every 20 ms, so a peak shorter than that can be missed);
+* peak memory of all processes of the run together (the process and all its
+  descendants): summed RSS, and summed PSS, which counts a page shared by forked
+  processes once (/proc polled every 20 ms, so a peak shorter than that can be missed);
 * report bytes per stack: report.html plus any per-stack pages, divided by N; and the
   same for a small survey of noisy scenes (``--noisy-stacks``, noise of 60 counts, run
   once, untimed), the hard case for picture compression;
@@ -147,8 +148,11 @@ def write_config(folder: Path, n: int, prefix: str, tag: str):
     return cfg
 
 
-def _tree_rss(pid):
-    """Summed resident set [bytes] of ``pid`` and all its descendants, from /proc."""
+def _tree_memory(pid):
+    """(summed resident set, summed proportional set) [bytes] of ``pid`` and all its
+    descendants, from /proc. RSS counts pages shared by forked processes once per process;
+    PSS (``smaps_rollup``) splits each shared page between its sharers, so its sum is the
+    memory the processes take together."""
     children = {}
     for d in os.listdir("/proc"):
         if not d.isdigit():
@@ -160,27 +164,34 @@ def _tree_rss(pid):
         except (OSError, ValueError):
             continue
         children.setdefault(ppid, []).append(int(d))
-    total, todo = 0, [pid]
+    rss = pss = 0
+    todo = [pid]
     page = os.sysconf("SC_PAGE_SIZE")
     while todo:
         p = todo.pop()
         try:
             with open(f"/proc/{p}/statm") as fh:
-                total += int(fh.read().split()[1]) * page
+                rss += int(fh.read().split()[1]) * page
+            with open(f"/proc/{p}/smaps_rollup") as fh:
+                for line in fh:
+                    if line.startswith("Pss:"):
+                        pss += int(line.split()[1]) * 1024
+                        break
         except (OSError, ValueError):
             pass
         todo += children.get(p, [])
-    return total
+    return rss, pss
 
 
 def timed(cmd, env):
-    """Wall time [s] and peak summed RSS of the process tree [MB] of one subprocess.
+    """Wall time [s], peak summed RSS and peak summed PSS of the process tree [MB] of one
+    subprocess.
 
     Dirty pages of earlier runs are written out first (``os.sync``), so that no run pays
     for the write-back of another one's output."""
     if hasattr(os, "sync"):
         os.sync()
-    peak = [0]
+    peak = [0, 0]
     with tempfile.TemporaryFile() as err:
         t0 = time.perf_counter()
         p = subprocess.Popen(cmd, env=env, stdout=subprocess.DEVNULL, stderr=err)
@@ -188,7 +199,8 @@ def timed(cmd, env):
 
         def poll():
             while not stop.is_set():
-                peak[0] = max(peak[0], _tree_rss(p.pid))
+                rss, pss = _tree_memory(p.pid)
+                peak[0], peak[1] = max(peak[0], rss), max(peak[1], pss)
                 stop.wait(0.02)
 
         th = threading.Thread(target=poll, daemon=True)
@@ -203,7 +215,7 @@ def timed(cmd, env):
             raise SystemExit(f"bench: {' '.join(map(str, cmd))[:300]} failed ({p.returncode}):\n"
                              f"{err.read().decode(errors='replace')[-2000:]}")
     # the largest single process (wait4) is a lower bound of the summed peak
-    return dt, max(peak[0] / 2 ** 20, ru.ru_maxrss / 1024.0)
+    return dt, max(peak[0] / 2 ** 20, ru.ru_maxrss / 1024.0), peak[1] / 2 ** 20
 
 
 def report_bytes(out: Path):
@@ -295,12 +307,13 @@ def main(argv=None):
                 for kind, cmd in (("floor", floor_cmd), ("run", run_cmd)):
                     if kind == "run":
                         shutil.rmtree(folder / f"out_{n}", ignore_errors=True)
-                    dt, rss = timed(cmd, env)
+                    dt, rss, pss = timed(cmd, env)
                     if kind not in best or dt < best[kind][0]:
                         best[kind] = (dt, rss)
                     best[kind + "_rss"] = max(best.get(kind + "_rss", 0.0), rss)
-            res[n] = {k: {"seconds": round(best[k][0], 3), "peak_rss_mb": round(best[k + "_rss"], 1)}
-                      for k in ("run", "floor")}
+                    best[kind + "_pss"] = max(best.get(kind + "_pss", 0.0), pss)
+            res[n] = {k: {"seconds": round(best[k][0], 3), "peak_rss_mb": round(best[k + "_rss"], 1),
+                          "peak_pss_mb": round(best[k + "_pss"], 1)} for k in ("run", "floor")}
             for f in folder.glob("floor_*.tif"):
                 f.unlink()
             print(f"bench: {n} stacks: run {best['run'][0]:.2f} s, floor {best['floor'][0]:.2f} s", file=sys.stderr)
@@ -337,6 +350,8 @@ def main(argv=None):
                                 for n in (s, l)},
             "peak_rss_mb": {"run": {str(n): res[n]["run"]["peak_rss_mb"] for n in (s, l)},
                             "floor": {str(n): res[n]["floor"]["peak_rss_mb"] for n in (s, l)}},
+            "peak_pss_mb": {"run": {str(n): res[n]["run"]["peak_pss_mb"] for n in (s, l)},
+                            "floor": {str(n): res[n]["floor"]["peak_pss_mb"] for n in (s, l)}},
             "report_bytes_per_stack": sizes,
             "report_pages": len(pages),
             "noisy_stacks": a.noisy_stacks, "noisy_noise_counts": NOISY_COUNTS,
@@ -362,6 +377,8 @@ def main(argv=None):
     for n in (s, l):
         print(f"{f'peak RSS, {n} stacks [MB]':28s}{res[n]['run']['peak_rss_mb']:{w}.0f}"
               f"{res[n]['floor']['peak_rss_mb']:{w}.0f}")
+        print(f"{f'peak PSS, {n} stacks [MB]':28s}{res[n]['run']['peak_pss_mb']:{w}.0f}"
+              f"{res[n]['floor']['peak_pss_mb']:{w}.0f}")
     for k, v in sizes.items():
         print(f"{f'report bytes/stack, {k}':28s}{v:{w}d}")
     for k, v in (browser or {}).items():
