@@ -93,9 +93,13 @@ def registry():
     from .electrical import ElectricalStage
     from .picture import PictureStage
     from .dataset import DatasetWriterStage
+    from .align import AlignStage            # issue 12
+    from .temporal import TemporalStage      # issue 12
+    from .compare import CompareStage        # issue 12
 
-    return [BadPixelStage, RadiometricStage, UncertaintyStage, RegionStatsStage, SpotStage,
-            PictureStage, EnvelopeStage, ElectricalStage, DatasetWriterStage, TemperatureWriterStage]
+    return [BadPixelStage, AlignStage, RadiometricStage, UncertaintyStage, RegionStatsStage, SpotStage,
+            PictureStage, TemporalStage, CompareStage, EnvelopeStage, ElectricalStage, DatasetWriterStage,
+            TemperatureWriterStage]
 
 
 def build_chain(ctx):

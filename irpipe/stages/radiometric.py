@@ -43,6 +43,8 @@ class RadiometricStage(Stage):
         small_int = np.issubdtype(ctx.dtype, np.integer) and ctx.dtype.itemsize <= 2
         self.lookup = (small_int and self.nuc is None and eps.distinct() is not None
                        and self.refl_k is not None)
+        if ctx.shared.get("aligned_signal"):   # issue 12: the align stage hands over resampled signal
+            self.lookup = False
         ctx.invalid = {v: 0 for v in REASONS.values()}
         # whether a later stage reads the per-pixel inputs (chunk.extras "lookup_index" or
         # "signal": the uncertainty stage)
@@ -203,7 +205,10 @@ class RadiometricStage(Stage):
             self.hist_pic += counts.reshape(self.hist_pic.shape)
             chunk.extras["invalid_count"] = int(counts[self.reason_lut.ravel() != VALID].sum())
             return
-        s, reason = self.signal(raw)
+        if "aligned_signal" in chunk.extras:   # issue 12: linearised and resampled by stages/align.py
+            s, reason = chunk.extras.pop("aligned_signal")
+        else:
+            s, reason = self.signal(raw)
         chunk.extras["signal"] = s
         if self.refl_k is None:
             refl = self._reflector_temperature(s, reason, ctx)
