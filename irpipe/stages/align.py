@@ -107,10 +107,10 @@ class AlignStage(Stage):
                 reg = al.register_translation(ref_img, img, reference_prepared=prepared)
             t = reg.transform
             why = None
-            if np.hypot(t.row_shift_px, t.col_shift_px) > spec["max_shift_px"]:
-                why = f"shift beyond max_shift_px {spec['max_shift_px']:g}"
-            elif np.isfinite(reg.peak_ratio) and reg.peak_ratio < spec["min_peak_ratio"]:
+            if np.isfinite(reg.peak_ratio) and reg.peak_ratio < spec["min_peak_ratio"]:
                 why = f"peak ratio below min_peak_ratio {spec['min_peak_ratio']:g}: registration failed"
+            elif np.hypot(t.row_shift_px, t.col_shift_px) > spec["max_shift_px"]:
+                why = f"shift beyond max_shift_px {spec['max_shift_px']:g}"
             self.transforms.append(None if why else t)
             row = {"frame": i, "row_shift_px": round(t.row_shift_px, 3), "col_shift_px": round(t.col_shift_px, 3),
                    "peak_ratio": round(reg.peak_ratio, 2) if np.isfinite(reg.peak_ratio) else None}
