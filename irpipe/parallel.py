@@ -237,11 +237,15 @@ class PixelKernel:
             rad.hist = rad.hist2d = None
         self.rad = rad
         self.aux = rad.export_index
+        # issue 12: an align stage needs the stack's frame numbers and reports its own
+        # invalid-pixel reasons (two more side columns)
+        self.frames = any(getattr(s, "name", "") == "align" for s in self.pre)
+        self.side = self.SIDE + (2 if self.frames else 0)
         self.aux_dtype = None
         if self.aux:
             self.aux_dtype = np.int32 if rad.lookup else np.float64
 
-    def __call__(self, raw):
+    def __call__(self, raw, frames=None):
         from .correction import REASONS
         from .stages import Chunk
 
@@ -249,7 +253,7 @@ class PixelKernel:
 
         raw = np.array(raw, copy=True, order="C")
         f = raw.shape[0]
-        side = np.zeros((f, self.SIDE))
+        side = np.zeros((f, self.side))
         side[:, 4] = np.nan
         st = copy.copy(self.rad)
         codes = sorted(REASONS)
@@ -262,7 +266,7 @@ class PixelKernel:
             reason_flat = st.reason_lut.ravel()
         out = np.empty(raw.shape, np.float32)
         for k in range(f):
-            chunk = Chunk(k, raw[k:k + 1])
+            chunk = Chunk(k if frames is None else int(frames[k]), raw[k:k + 1])
             for s in self.pre:
                 s.process(chunk, kctx)
             before = dict(kctx.invalid)
@@ -280,6 +284,8 @@ class PixelKernel:
             refl = chunk.extras.get("reflected_temperature_k")
             if refl is not None:
                 side[k, 4] = float(np.asarray(refl).reshape(-1)[0])
+            if self.frames:          # issue 12: align stage's reasons
+                side[k, self.SIDE:] = list(chunk.extras.get("align_invalid", {}).values())
             if aux is not None:
                 aux[k] = chunk.extras["lookup_index" if st.lookup else "signal"][0]
         return (out, side, aux) if aux is not None else (out, side)
@@ -307,9 +313,15 @@ def lazy_temperature(raw, kernel):
     if kernel.aux:
         out_dims.append(["row", "col"])
         dtypes.append(kernel.aux_dtype)
-    res = xr.apply_ufunc(kernel, raw, input_core_dims=[["row", "col"]], output_core_dims=out_dims,
+    args, core = [raw], [["row", "col"]]
+    if getattr(kernel, "frames", False):     # issue 12: the frame numbers travel with the chunks
+        import dask.array as da
+        args.append(xr.DataArray(da.from_array(np.arange(raw.shape[0]), chunks=(raw.data.chunks[0],)),
+                                 dims=("frame",)))
+        core.append([])
+    res = xr.apply_ufunc(kernel, *args, input_core_dims=core, output_core_dims=out_dims,
                          dask="parallelized", output_dtypes=dtypes,
-                         dask_gufunc_kwargs={"output_sizes": {"side": PixelKernel.SIDE}})
+                         dask_gufunc_kwargs={"output_sizes": {"side": getattr(kernel, "side", PixelKernel.SIDE)}})
     t = res[0].rename("temperature")
     t.attrs.update(units="degC", long_name="surface temperature", standard_name="surface_temperature")
     return (t,) + tuple(res[1:])
@@ -377,6 +389,11 @@ def run_stack_distributed(ctx, progress=None):
                 for c, label in zip(codes, (REASONS[c] for c in codes)):
                     ctx.invalid[label] += int(side[:, codes.index(c)].sum())
                 chunk.extras["invalid_count"] = int(side[:, :4].sum())
+                if side.shape[1] > PixelKernel.SIDE:      # issue 12: align stage's reasons
+                    from .alignment import ALIGN_REASONS
+                    for j, label in enumerate(ALIGN_REASONS.values()):
+                        ctx.invalid[label] = ctx.invalid.get(label, 0) + int(side[:, PixelKernel.SIDE + j].sum())
+                    chunk.extras["invalid_count"] += int(side[:, PixelKernel.SIDE:].sum())
                 if np.isfinite(side[:, 4]).any():
                     chunk.extras["reflected_temperature_k"] = side[:, 4].copy()
                     ctx.shared.setdefault("reflected_series_k", []).extend(side[:, 4].tolist())

@@ -184,3 +184,21 @@ def test_align_false_equals_no_align(tmp_path, drift_frames):
     ra.pop("seconds", None), rb.pop("seconds", None)
     assert json.dumps(ra, sort_keys=True) == json.dumps(rb, sort_keys=True)
     assert "alignment" not in ra and ra["plan"] == "lookup"
+
+
+def test_cluster_run_equals_plain_run(tmp_path, drift_frames):
+    distributed = pytest.importorskip("distributed")
+    rng = np.random.default_rng(8)
+    frames = [counts(f, rng) for f in drift_frames[:5]]
+    frames[3] = counts(np.full(SHAPE, drift_frames[0].mean()), rng, 30.0)     # rejected
+    tifffile.imwrite(tmp_path / "wall.tif", np.stack(frames), photometric="minisblack")
+    cfg = _config(tmp_path, "true", products="c", extra="    time: evening\n")
+    plain = run(cfg, tmp_path / "plain", frame_chunk=2)
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=False,
+                                  dashboard_address=None) as cluster:
+        dist = run(cfg, tmp_path / "dist", scheduler=cluster.scheduler_address, frame_chunk=2)
+    a, b = dist.report["stacks"][0], plain.report["stacks"][0]
+    assert a["alignment"] == b["alignment"] and a["alignment"]["rejected_frames"] == [3]
+    assert a["invalid_pixels"] == b["invalid_pixels"]
+    for f in ("wall.temperature.tif", "wall.mean.tif"):
+        np.testing.assert_array_equal(tifffile.imread(tmp_path / "dist" / f), tifffile.imread(tmp_path / "plain" / f))

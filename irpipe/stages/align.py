@@ -22,8 +22,6 @@ temperature stack and are left out of every statistic.
 """
 from __future__ import annotations
 
-from types import SimpleNamespace
-
 import numpy as np
 from scipy import ndimage
 
@@ -35,18 +33,22 @@ from . import Stage
 ORDER = 1
 
 
-def linearizer(ctx):
-    """A function raw -> (signal, reason) with the radiometric stage's numbers: its own
-    ``signal`` method bound to this stack's calibration, NUC and saturation."""
-    from .radiometric import RadiometricStage
+class Linearizer:
+    """raw -> (signal, reason) with the radiometric stage's numbers: its own ``signal``
+    method on this stack's calibration, NUC and saturation (picklable, for cluster runs)."""
 
-    cam = ctx.shared["camera_cfg"]
-    sat = cam.get("saturation")
-    if sat is None and np.issubdtype(ctx.dtype, np.integer):
-        sat = np.iinfo(ctx.dtype).max
-    st = SimpleNamespace(input=cam["input"], cal=ctx.shared["calibration"], model=ctx.model,
-                         nuc=ctx.shared.get("nuc"), saturation=sat)
-    return lambda raw: RadiometricStage.signal(st, raw)
+    def __init__(self, ctx):
+        cam = ctx.shared["camera_cfg"]
+        sat = cam.get("saturation")
+        if sat is None and np.issubdtype(ctx.dtype, np.integer):
+            sat = np.iinfo(ctx.dtype).max
+        self.input, self.cal, self.model = cam["input"], ctx.shared["calibration"], ctx.model
+        self.nuc, self.saturation = ctx.shared.get("nuc"), sat
+
+    def __call__(self, raw):
+        from .radiometric import RadiometricStage
+
+        return RadiometricStage.signal(self, raw)
 
 
 class AlignStage(Stage):
@@ -68,7 +70,7 @@ class AlignStage(Stage):
         if ref >= n:
             ctx.cfg.fail(["stacks", ctx.index, "align", "reference_frame"],
                          f"frame {ref} does not exist: the stack has {n} frame(s) (0 to {n - 1})")
-        self.lin = linearizer(ctx)
+        self.lin = Linearizer(ctx)
         mask = ctx.shared.get("bad_pixel_mask")
         filler = BadPixelFiller(mask) if mask is not None else None
         size = int(ctx.options.get("frame_chunk") or 32)
@@ -150,14 +152,14 @@ class AlignStage(Stage):
             near = ndimage.affine_transform(reason[k], m, offset=(t.row_shift_px, t.col_shift_px), order=0,
                                             mode="constant", cval=al.NOT_COVERED)
             code[k] = np.where(covered, VALID, np.where(near != VALID, near, al.NOT_COVERED))
-        for c, label in al.ALIGN_REASONS.items():
-            self.counts[label] += int(np.count_nonzero(code == c))
+        here = {label: int(np.count_nonzero(code == c)) for c, label in al.ALIGN_REASONS.items()}
+        for label, n in here.items():
+            self.counts[label] += n
         chunk.extras["aligned_signal"] = (out, code)
+        chunk.extras["align_invalid"] = here        # read by the cluster runner's kernel
 
     def finish(self, ctx):
-        inv = ctx.report.get("invalid_pixels")
-        # the radiometric stage reports ctx.invalid in its own finish (after this one)
+        # the radiometric stage reports ctx.invalid in its own finish (after this one); in a
+        # cluster run the client has added the workers' counts already
         for label, n in self.counts.items():
-            ctx.invalid[label] = n
-        if inv is not None:
-            inv.update(self.counts)
+            ctx.invalid[label] = ctx.invalid.get(label, 0) + n
