@@ -25,12 +25,19 @@ fixed pattern do not pull the estimate towards zero. No masks are given to sciki
 (with masks it ignores ``upsample_factor`` and returns whole pixels).
 
 The normalisation of the cross-power spectrum was chosen by measuring the sub-pixel bias
-on sparse, sharp-edged scenes shifted by known amounts, each frame made by integrating a
-16x finer grid over each pixel (``tests/test_alignment.py``, figures in the README): with
-full phase normalisation (``normalization="phase"``) the estimate is pulled towards whole
-pixels by up to ~0.2 px on such scenes, while the plain cross-correlation of the windowed
-gradient image (``normalization=None``) keeps the bias below ~0.03 px. The default is
-therefore the unnormalised correlation of the gradient magnitude.
+on sparse, sharp-edged facades shifted by 37 known amounts within +-3 px, each frame made
+by integrating a 64x finer grid over each pixel (figures in the README). Maximum |error|
+(RMS) per axis, single pass -> with one refinement pass:
+
+* gradient image, no normalisation: 0.07 (0.035) -> 0.04 (0.015) px  (used)
+* gradient image, phase normalisation: 0.13 (0.063) -> 0.045 (0.025) px
+* mean-removed signal, no normalisation: 0.13 (0.046) -> 0.05 (0.020) px
+* mean-removed signal, phase normalisation: 0.15 (0.089) -> 0.19 (0.067) px
+
+Full phase normalisation pulls the estimate towards whole pixels on such scenes. The
+refinement pass moves the frame back by the first estimate (bilinear) and registers it
+again: the window does not move with the content and the gradient image of a
+pixel-integrated edge is not exactly shift-covariant, errors that shrink with the shift.
 
 ``peak_ratio`` (quality figure, our own): the height of the correlation peak divided by
 the highest value of the correlation surface outside a 5 x 5 neighbourhood of the peak.
