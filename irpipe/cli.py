@@ -28,6 +28,8 @@ def _parser():
     r.add_argument("--keep-going", action="store_true", help="go on with the other stacks when one fails")
     r.add_argument("--workers", type=int, help="run on a local dask cluster with N workers")
     r.add_argument("--scheduler", help="address of an existing dask.distributed scheduler")
+    r.add_argument("--jobs", type=int, help="stacks processed at once, each in its own process (default: the "
+                   "machine's cores; 1 = one after another)")
     r.add_argument("--quiet", action="store_true", help="no progress bar")
     r.add_argument("--frame-chunk", type=int, help="frames per chunk (memory vs. overhead)")
 
@@ -94,7 +96,7 @@ def _tune_allocator():
 def _dispatch(args):
     if args.command == "schema":
         from .config import json_schema
-        print(json.dumps(json_schema(), indent=2))
+        _print_or_quiet_pipe(json.dumps(json_schema(), indent=2))
         return 0
     if args.command == "validate":
         from pathlib import Path
@@ -108,9 +110,17 @@ def _dispatch(args):
     if args.command in ("run", "demo"):
         _tune_allocator()
     if args.command == "run":
-        from .pipeline import run
+        if args.jobs is not None and (args.workers or args.scheduler):
+            from .errors import ConfigError
+            raise ConfigError("--jobs runs whole stacks in parallel processes and --workers/--scheduler split one "
+                              "stack's pixels over a dask cluster: give one of them")
+        if args.jobs is not None and args.jobs < 1:
+            from .errors import ConfigError
+            raise ConfigError(f"--jobs {args.jobs}: give a number of processes of 1 or more")
+        from .pipeline import default_jobs, run
+        jobs = args.jobs if args.jobs is not None else (1 if (args.workers or args.scheduler) else default_jobs())
         res = run(args.config, args.out, resume=args.resume, keep_going=args.keep_going, quiet=args.quiet,
-                  workers=args.workers, scheduler=args.scheduler, frame_chunk=args.frame_chunk)
+                  workers=args.workers, scheduler=args.scheduler, frame_chunk=args.frame_chunk, jobs=jobs)
         return _summary(res)
     if args.command in ("emissivity", "calibrate"):
         from .cli_field import dispatch as _dispatch_field
@@ -121,8 +131,21 @@ def _dispatch(args):
     return 1
 
 
+def _print_or_quiet_pipe(text):
+    """Print to stdout; a reader that closes the pipe early (``irpipe schema | head``) ends
+    the output quietly."""
+    import os
+    try:
+        print(text)
+        sys.stdout.flush()
+    except BrokenPipeError:
+        # stdout is gone: point it at devnull so the interpreter's final flush is quiet too
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+
+
 def _summary(res):
-    done = [s for s in res.report["stacks"] if s.get("status") == "done"]
+    done = [s for s in res.report["stacks"] if s.get("status") == "done" and s["name"] not in res.skipped]
     print(f"irpipe: {len(done)} stack(s) processed, {len(res.skipped)} unchanged and skipped, "
           f"{len(res.failed)} failed; outputs in {res.out_dir}")
     for name, msg, _ in res.failed:

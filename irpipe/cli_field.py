@@ -13,6 +13,7 @@ from pathlib import Path
 import numpy as np
 
 from .constants import ZERO_CELSIUS
+from .stages.base import Stage
 
 
 def register(sub, common):
@@ -134,66 +135,81 @@ def emissivity_command(args):
     return 0
 
 
+class _RegionSignal(Stage):
+    """Chain stage of ``measure_regions``: per-pixel sums of the offset-free signal of
+    some regions over the frames (the kernel's own linearisation), and the reflector
+    method's per-frame reflected signal."""
+
+    name = "region_signal"
+    requires = ("chunk.raw", "ctx.tables", "chunk.reflected_temperature_k")
+    provides = ()
+
+    def __init__(self, idx):  # noqa: D107
+        self.idx = idx
+        self.sums = {r: np.zeros(i.size) for r, i in idx.items()}
+        self.cnts = {r: np.zeros(i.size) for r, i in idx.items()}
+        self.g_refl = []
+
+    def process(self, chunk, ctx):
+        from .correction import VALID
+        from .kernel import linearise
+
+        s, reason = linearise(chunk.raw, ctx.tables)
+        if chunk.reflected_temperature_k is not None:
+            self.g_refl += list(ctx.model.path_signal(chunk.reflected_temperature_k))
+        f = s.shape[0]
+        for r, i in self.idx.items():
+            v = s.reshape(f, -1)[:, i]
+            ok = reason.reshape(f, -1)[:, i] == VALID
+            self.sums[r] += np.where(ok, v, 0).sum(0)
+            self.cnts[r] += ok.sum(0)
+
+
 def measure_regions(config, stack, regions):
     """Frame-mean offset-free signal of each pixel of some regions of a stack.
 
-    Returns a dict with ``signal`` (region -> 1-D array, NaN for pixels never valid),
-    ``model``, ``reflected_temperature_k`` (the stack's, or the signal-mean of the
+    The stack runs through its own chain (``irpipe.runner.run_chain``: bad-pixel fill and
+    the radiometric kernel) with a collector stage added, so the signal is the one every
+    run computes. Returns a dict with ``signal`` (region -> 1-D array, NaN for pixels never
+    valid), ``model``, ``reflected_temperature_k`` (the stack's, or the signal-mean of the
     per-frame reflector values), ``air_temperature_k``, ``frames`` and the config's
     ``uncertainty`` section.
     """
-    from .calibration import BadPixelFiller
+    import tempfile
+
     from .config import load_config
-    from .correction import VALID
+    from .constants import ZERO_CELSIUS
     from .errors import ConfigError
-    from .pipeline import load_materials, prepare_stack
-    from .stages.radiometric import RadiometricStage
+    from .prepare import load_materials, prepare_stack
+    from .runner import local_chunks, run_chain
+    from .stages import build_chain
 
     cfg = load_config(config)
     names = [s["name"] for s in cfg.data["stacks"]]
     if stack not in names:
         raise ConfigError(f"{cfg.path.name}: no stack '{stack}'; stacks: {', '.join(names)}")
-    ctx = prepare_stack(cfg, names.index(stack), Path("."), {}, load_materials(cfg), {})
-    reader = ctx.shared["reader"]
-    try:
+    with tempfile.TemporaryDirectory(prefix="irpipe-field-") as scratch:
+        ctx = prepare_stack(cfg, names.index(stack), Path(scratch), {}, load_materials(cfg), {})
         for r in regions:
             if r not in ctx.masks:
                 raise ConfigError(f"{cfg.path.name}, stack '{stack}': no region '{r}'; regions: "
                                   f"{', '.join(ctx.masks) or 'none'}")
-        rad = RadiometricStage()
-        rad.start(ctx)
-        filler = BadPixelFiller(ctx.shared["bad_pixel_mask"]) if ctx.shared.get("bad_pixel_mask") is not None \
-            else None
-        idx = {r: np.flatnonzero(ctx.masks[r]) for r in regions}
-        sums = {r: np.zeros(i.size) for r, i in idx.items()}
-        cnts = {r: np.zeros(i.size) for r, i in idx.items()}
-        g_refl = []
-        n = ctx.shape[0]
-        for first in range(0, n, 16):
-            raw = reader.read(first, min(n, first + 16))
-            if filler is not None:
-                filler.fill(raw)
-            s, reason = rad.signal(raw)
-            if rad.refl_k is None:
-                tr = rad._reflector_temperature(s, reason, ctx).ravel()
-                g_refl += list(ctx.model.path_signal(tr))
-            f = s.shape[0]
-            for r, i in idx.items():
-                v = s.reshape(f, -1)[:, i]
-                ok = reason.reshape(f, -1)[:, i] == VALID
-                sums[r] += np.where(ok, v, 0).sum(0)
-                cnts[r] += ok.sum(0)
-    finally:
-        reader.close()
+        collector = _RegionSignal({r: np.flatnonzero(ctx.masks[r]) for r in regions})
+        # only the pixel stages: nothing is written, no statistics are kept
+        pixel = {"bad_pixels", "radiometric"}
+        chain = [s for s in build_chain(ctx, extra=[collector]) if s.name in pixel or s is collector]
+        run_chain(chain, ctx, local_chunks(ctx, 16), threads=False)
     with np.errstate(invalid="ignore", divide="ignore"):
-        signal = {r: np.where(cnts[r] > 0, sums[r] / np.maximum(cnts[r], 1), np.nan) for r in regions}
-    if rad.refl_k is None:
+        signal = {r: np.where(collector.cnts[r] > 0, collector.sums[r] / np.maximum(collector.cnts[r], 1), np.nan)
+                  for r in regions}
+    if ctx.reflected_temperature_k is None:
         # the equation is linear in G(T_refl): the frame mean of G gives the equivalent value
-        refl = float(ctx.model.path_table.inverse(np.array([np.mean(g_refl)]))[0])
+        refl = float(ctx.model.path_table.inverse(np.array([np.mean(collector.g_refl)]))[0])
     else:
-        refl = float(rad.refl_k)
+        refl = float(ctx.reflected_temperature_k)
     return {"signal": signal, "model": ctx.model, "reflected_temperature_k": refl,
-            "air_temperature_k": rad.air_k, "frames": n, "uncertainty": cfg.data.get("uncertainty") or {}}
+            "air_temperature_k": ctx.conditions["air_temperature_c"] + ZERO_CELSIUS, "frames": ctx.shape[0],
+            "uncertainty": cfg.data.get("uncertainty") or {}}
 
 
 def write_library_entry(path, name, entry):

@@ -14,6 +14,8 @@ from typing import Any
 
 import yaml
 
+from .defaults import (CONFIG_TEMPERATURE_RANGE_C, CRITICAL_TEMPERATURE_FACTORS, FRAME_CHUNK,
+                       MAX_REFLECTOR_EMISSIVITY, TABLE_LIMITS_C, TABLE_RANGE_C)
 from .errors import ConfigError
 
 
@@ -163,7 +165,7 @@ def _fmt(x, inf):
     return inf if x is None else f"{x:g}"
 
 
-def Celsius(help="", default=None, lo=-100.0, hi=1000.0):
+def Celsius(help="", default=None, lo=CONFIG_TEMPERATURE_RANGE_C[0], hi=CONFIG_TEMPERATURE_RANGE_C[1]):
     """A temperature in degrees Celsius: above absolute zero and within a plausible range."""
     return Number(help=help, default=default, lo=lo, hi=hi)
 
@@ -425,8 +427,9 @@ CAMERA = Mapping(keys={
     "gain_map": FilePath(help="per-pixel NUC gain TIFF (corrected = gain*raw + offset)"),
     "offset_map": FilePath(help="per-pixel NUC offset TIFF [counts]"),
     "bad_pixel_mask": FilePath(help="TIFF, non-zero where a pixel is bad; filled from valid neighbours"),
-    "range_c": Pair(item=Celsius(lo=-100.0, hi=2000.0), default=None,
-                    help="temperature range of the inverse tables [C]; default [-60, 650]"),
+    "range_c": Pair(item=Celsius(lo=TABLE_LIMITS_C[0], hi=TABLE_LIMITS_C[1]), default=None,
+                    help="temperature range of the inverse tables [C]; default "
+                         f"[{TABLE_RANGE_C[0]:g}, {TABLE_RANGE_C[1]:g}]"),
 }, help="camera model")
 
 class _Ellipse(Node):
@@ -548,8 +551,7 @@ SCHEMA = Mapping(keys={
         "indoor_air_c": Celsius(lo=-30.0, hi=60.0),
         "outdoor_air_c": Celsius(lo=-60.0, hi=60.0),
         "indoor_relative_humidity_pct": Number(lo=0.0, hi=100.0),
-        "building_use": String(choices=("storage", "office", "retail", "dwelling", "school", "residential",
-                                        "sports-hall", "kitchen", "swimming-pool", "laundry")),
+        "building_use": String(choices=tuple(CRITICAL_TEMPERATURE_FACTORS)),
         "critical_temperature_factor": Number(lo=0.0, hi=1.0),
     }),
     "camera": CAMERA,
@@ -566,7 +568,7 @@ SCHEMA = Mapping(keys={
         "dir": String(default="out"),
         "formats": ListOf(item=String(choices=("tiff", "netcdf", "zarr")), default=["tiff"]),
         "report": Bool(default=True),
-        "frame_chunk": Number(lo=1, integer=True, default=32),
+        "frame_chunk": Number(lo=1, integer=True, default=FRAME_CHUNK),
         "products": ListOf(item=String(choices=("mean", "std")),
                            help="temporal products after alignment: <name>.mean.tif, <name>.std.tif"),
         "fsync": Bool(default=False, help="force temperature stacks to disk before renaming them into place "
@@ -679,12 +681,29 @@ def _cross_checks(cfg: Config):
             ref = sp.get("reference")
             if ref and ref != "median" and ref not in rnames:
                 cfg.fail(["stacks", i, sk, "reference"], f"'{ref}' is not a region of this stack nor 'median'; regions: {', '.join(sorted(rnames)) or 'none'}")
+            absolute, relative = ("above_c", "above_reference_k") if sk == "hotspots" else ("below_c", "below_reference_k")
+            if absolute not in sp and relative not in sp:
+                cfg.fail(["stacks", i, sk], f"no threshold: give {absolute} (a temperature) or {relative} with a "
+                                            "reference (a region name or median)")
+            if relative in sp and not ref:
+                cfg.fail(["stacks", i, sk, relative], f"{relative} is relative to a reference: add "
+                                                      "reference: <region name> or reference: median")
+        for j, r in enumerate(st.get("regions", [])):
+            ref = r.get("reference")
+            if ref is not None and ref not in rnames:
+                cfg.fail(["stacks", i, "regions", j, "reference"],
+                         f"'{ref}' is not a region of this stack; regions: {', '.join(sorted(rnames)) or 'none'}")
         _check_align_compare(cfg, i, st, rnames, [x["name"] for x in d["stacks"]])
         cond = merged_conditions(d, i)
         refl = cond.get("reflected_temperature_c")
         if isinstance(refl, dict) and refl["reflector"] not in rnames:
             cfg.fail(["stacks", i, "conditions", "reflected_temperature_c", "reflector"],
                      f"'{refl['reflector']}' is not a region of this stack; regions: {', '.join(sorted(rnames)) or 'none'}")
+        if isinstance(refl, dict) and (refl.get("reflector_emissivity") or 0.0) >= MAX_REFLECTOR_EMISSIVITY:
+            cfg.fail(condition_key(cfg, i, "reflected_temperature_c") + ["reflector_emissivity"],
+                     f"a reflector of emissivity {refl['reflector_emissivity']:g} is not a reflector; the reflector "
+                     "method needs a diffuse reflector of emissivity near 0 (crumpled-and-flattened aluminium foil, "
+                     f"about 0.03): give a value below {MAX_REFLECTOR_EMISSIVITY:g}")
         for key in ("emissivity", "reflected_temperature_c", "air_temperature_c"):
             if key not in cond:
                 cfg.fail(["stacks", i], f"no {key} for this stack: set it under conditions or the stack's conditions")
@@ -744,3 +763,16 @@ def merged_conditions(data: dict, index: int) -> dict:
         else:
             base[k] = v
     return base
+
+
+def condition_key(cfg, i, name):
+    """Key path of a condition of stack ``i``: the stack's own if it sets it, else the
+    survey-wide one (for ``Config.fail`` and error locations)."""
+    own = cfg.data["stacks"][i].get("conditions", {})
+    return ["stacks", i, "conditions", name] if name in own else ["conditions", name]
+
+
+def camera_key(cfg, i, name):
+    """Key path of a camera setting of stack ``i`` (its own override, else the survey's)."""
+    own = cfg.data["stacks"][i].get("camera", {})
+    return ["stacks", i, "camera", name] if own.get(name) is not None else ["camera", name]

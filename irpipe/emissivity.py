@@ -18,6 +18,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .defaults import REFRACTIVE_INDEX
+
 
 @dataclass
 class EmissivityField:
@@ -177,7 +179,7 @@ def fresnel_emissivity(angle, n, k=0.0):
     return 1.0 - 0.5 * (np.abs(rs) ** 2 + np.abs(rp) ** 2)
 
 
-def oblique_factor(angle_deg, refractive_index=1.5):
+def oblique_factor(angle_deg, refractive_index=REFRACTIVE_INDEX):
     """Ratio eps(theta)/eps(0) for a dielectric of the given refractive index.
 
     Applied to a near-normal emissivity from a table. The default n = 1.5 is a typical
@@ -220,7 +222,7 @@ def view_angle_zones(shape, stack_angle=None, regions=()):
     return zone, angles
 
 
-def apply_view_angles(field, shape, stack_angle=None, regions=(), refractive_index=1.5):
+def apply_view_angles(field, shape, stack_angle=None, regions=(), refractive_index=REFRACTIVE_INDEX):
     """Correct a near-normal emissivity field for oblique views, stack-wide and per region.
 
     Parameters

@@ -504,3 +504,31 @@ def write_tiff_atomic(dest, array, description=""):
     w = StackWriter(dest, array.shape, description, dtype=array.dtype)
     w.write(array if array.ndim == 3 else array[None])
     w.commit()
+
+
+def remove_stale_parts(folder, before: float) -> list:
+    """Remove temporary outputs that a killed run left in ``folder``: files and folders
+    named ``.<name>.<random>.part`` (``atomic`` writes, Zarr folders) last modified before
+    ``before`` (a ``time.time()`` stamp, the start of this run), so that a writer running
+    in parallel is never disturbed. Returns the names removed."""
+    import shutil
+
+    removed = []
+    try:
+        entries = list(os.scandir(folder))
+    except OSError:
+        return removed
+    for e in entries:
+        if not (e.name.startswith(".") and e.name.endswith(".part")):
+            continue
+        try:
+            if e.stat(follow_symlinks=False).st_mtime >= before:
+                continue
+            if e.is_dir(follow_symlinks=False):
+                shutil.rmtree(e.path)
+            else:
+                os.unlink(e.path)
+            removed.append(e.name)
+        except OSError:
+            pass
+    return removed

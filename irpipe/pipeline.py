@@ -1,327 +1,44 @@
-"""The pipeline: read a validated config, prepare each stack, stream its frames through
-the stage chain, and write the outputs and the report.
+"""The pipeline: run a survey config's stacks through their stage chains and write the
+outputs, the manifest and the report.
 
 Order of work: (1) the whole config is validated and every input is opened and checked
-before any output is written (``plan``); (2) stacks run one after another, each writing
-only temporary files until it completes; (3) the report and the run manifest are written
-last, atomically.
+before any output is written (``plan``); (2) stacks run one after another, each prepared
+when it starts and writing only temporary files until it completes, and each leaving only
+its small report entry and report picture behind; (3) the report and the run manifest are
+written last, atomically.
+
+Model building from the config lives in ``irpipe.prepare``, the chain runner in
+``irpipe.runner``, the manifest in ``irpipe.manifest`` and report.json's survey document
+in ``irpipe.report.survey``; their public names stay importable from here.
 """
 from __future__ import annotations
 
-import datetime as _dt
-import hashlib
-import json
 import sys
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
 
-import numpy as np
-
 from . import __version__
-from .config import Config, load_config, merged_camera, merged_conditions
-from .constants import STANDARD_PRESSURE, ZERO_CELSIUS
-from .correction import CameraModel, MeasurementModel
-from .emissivity import EmissivityField, material_emissivity
-from .errors import ConfigError, InputDataError, IrpipeError
-from .io import StackReader, read_map, read_spectral_response, sha256, write_json_atomic
-from .radiometry import SpectralResponse
-from .regions import geometry_problem, region_mask
-from .stages import Chunk, StackContext, build_chain
+from .config import Config, load_config
+from .defaults import FRAME_CHUNK
+from .errors import InputDataError, IrpipeError
+from .io import remove_stale_parts, sha256, write_json_atomic
+from .manifest import MANIFEST, hash_files, read_manifest, stack_fingerprint, stack_inputs, write_manifest
+from .prepare import (camera_model, load_materials, path_transmittance, prepare_stack,  # noqa: F401 (public)
+                      resolve_emissivity, spectral_response)
+from .report.survey import CAUTIONS, REPORT_SCHEMA, build_report, now_utc  # noqa: F401 (public)
+from .runner import abort_chain, local_chunks, run_chain  # noqa: F401 (public)
+from .stages import StackContext, build_chain
 
-DEFAULT_RANGE_C = (-60.0, 650.0)
-MANIFEST = "manifest.json"
-REPORT_SCHEMA = "irpipe.report/1"
+__all__ = ["run", "plan", "run_stack", "RunResult", "write_reports", "build_report", "MANIFEST", "REPORT_SCHEMA",
+           "CAUTIONS", "prepare_stack", "load_materials"]
 
-
-# --- shared survey-level objects ------------------------------------------------------
-
-def load_materials(cfg: Config):
-    """The packaged material library, extended/overridden by ``materials:`` in the config."""
-    import yaml
-    from importlib import resources
-
-    lib = yaml.safe_load(resources.files("irpipe").joinpath("data/materials.yaml").read_text())
-    if "materials" in cfg.data:
-        p = cfg.data["materials"]
-        try:
-            extra = yaml.safe_load(p.read_text())
-        except (yaml.YAMLError, UnicodeDecodeError) as exc:
-            raise ConfigError(f"{p}: material library is not valid YAML ({str(exc).splitlines()[0]})") from None
-        if not isinstance(extra, dict):
-            raise ConfigError(f"{p}: material library must map names to {{emissivity: ..., source: ...}}")
-        for name, entry in extra.items():
-            e = entry.get("emissivity") if isinstance(entry, dict) else None
-            if not isinstance(e, (int, float)) or not 0 < e <= 1:
-                raise ConfigError(f"{p}, {name}.emissivity: expected a number in (0, 1], got {e!r}")
-        lib.update(extra)
-    return lib
-
-
-def spectral_response(section: dict) -> SpectralResponse:
-    """The camera's response from ``spectral_response`` (CSV) or ``spectral_band_um`` of a
-    validated config section."""
-    if "spectral_response" in section:
-        try:
-            wl, resp = read_spectral_response(section["spectral_response"])
-            return SpectralResponse.tabulated(wl, resp, description=section["spectral_response"].name)
-        except ValueError as exc:
-            raise InputDataError(f"{section['spectral_response']}: {exc}") from None
-    lo, hi = section["spectral_band_um"]
-    return SpectralResponse.rectangular(lo * 1e-6, hi * 1e-6)
-
-
-def camera_model(cfg: Config, cam: dict):
-    """Spectral response and signal model from a (merged) camera section."""
-    response = spectral_response(cam)
-    cal = resolve_calibration(cfg, cam)
-    if cam["input"] == "counts" and cal["model"] == "sakuma-hattori":
-        return CameraModel(response, "sakuma-hattori", (cal["A_um"] * 1e-6, cal["B_umK"] * 1e-6, cal["C"])), cal
-    return CameraModel(response, "band"), cal
-
-
-def resolve_calibration(cfg: Config, cam: dict):
-    if cam["input"] == "apparent_temperature":
-        return {"model": "apparent_temperature", "raw_scale": cam["raw_scale"], "raw_offset": cam["raw_offset"],
-                "offset_counts": 0.0}
-    cal = dict(cam["calibration"])
-    if "file" in cal:
-        from .config import CALIBRATION, Ctx, load_yaml
-        path = cal["file"]
-        data, marks = load_yaml(path.read_text(), path.name)
-        inner = data.get("calibration", data) if isinstance(data, dict) else data
-        cal = CALIBRATION.check(inner, ["calibration"], Ctx(path.name, marks, path.parent))
-        maps = {}
-        if isinstance(data, dict):
-            for k in ("gain_map", "offset_map", "bad_pixel_mask"):
-                if k in data and k not in cam:
-                    f = path.parent / str(data[k])
-                    if not f.is_file():
-                        raise ConfigError(f"{path.name}, {k}: file '{data[k]}' not found next to the calibration file")
-                    maps[k] = f
-        cal["maps"] = maps
-    cal.setdefault("offset_counts", 0.0)
-    return cal
-
-
-def path_transmittance(cond, response, where):
-    """Spectral (or forced flat) transmittance of the stack's path, and a description."""
-    atm = cond.get("atmosphere", {})
-    d = cond.get("distance_m", 0.0)
-    if "transmittance" in atm:
-        return float(atm["transmittance"]), f"forced flat transmittance {atm['transmittance']:g}"
-    if d == 0:
-        return 1.0, "no path (distance 0)"
-    from .atmosphere import spectral_transmittance
-
-    p = atm.get("pressure_kpa", STANDARD_PRESSURE / 1000) * 1000.0
-    try:
-        tau = spectral_transmittance(response.wavelength, d, cond["air_temperature_c"] + ZERO_CELSIUS,
-                                     cond["relative_humidity_pct"] / 100.0, p)
-    except ValueError as exc:
-        raise ConfigError(f"{where}: {exc}") from None
-    return tau, f"LOWTRAN7-derived spectral transmittance, {d:g} m, {cond['air_temperature_c']:g} C, " \
-                f"{cond['relative_humidity_pct']:g} % RH, {p / 1000:g} kPa"
-
-
-# --- preparing one stack --------------------------------------------------------------
-
-class _where:
-    """Add the config location to an input-data error raised inside the block."""
-
-    def __init__(self, cfg, keypath):
-        self.cfg, self.keypath = cfg, keypath
-
-    def __enter__(self):
-        return self
-
-    def __exit__(self, typ, exc, tb):
-        if exc is not None and isinstance(exc, InputDataError) and not getattr(exc, "_located", False):
-            new = type(exc)(f"{exc} [given at {self.cfg.ctx.where(self.keypath)}]")
-            new._located = True
-            raise new from None
-        return False
-
-
-def _cond_key(cfg, i, name):
-    """Key path of a condition: the stack's own if it sets it, else the survey-wide one."""
-    own = cfg.data["stacks"][i].get("conditions", {})
-    return ["stacks", i, "conditions", name] if name in own else ["conditions", name]
-
-
-def _cam_key(cfg, i, name):
-    own = cfg.data["stacks"][i].get("camera", {})
-    return ["stacks", i, "camera", name] if own.get(name) is not None else ["camera", name]
-
-
-def prepare_stack(cfg: Config, i: int, out_dir: Path, cameras: dict, materials, options):
-    """Open a stack, read its maps and masks, resolve conditions; no output written."""
-    st = cfg.data["stacks"][i]
-    cond = merged_conditions(cfg.data, i)
-    cam = merged_camera(cfg.data, i)
-    ckey = json.dumps(cam, sort_keys=True, default=str)
-    if ckey not in cameras:
-        cameras[ckey] = camera_model(cfg, cam)
-    camera, cal = cameras[ckey]
-    for k, f in cal.get("maps", {}).items():      # maps named by a calibration file
-        cam.setdefault(k, f)
-    with _where(cfg, ["stacks", i, "path"]):
-        reader = StackReader(st["path"], f"stack '{st['name']}'")
-    shape, dtype = reader.shape, reader.dtype
-    if cam["input"] == "counts" and not np.issubdtype(dtype, np.integer):
-        reader.close()
-        raise InputDataError(f"{st['path']}: stack '{st['name']}' holds {dtype} values but camera.input is "
-                             "counts; raw counts are integers: set camera.input: apparent_temperature "
-                             "(with raw_scale, raw_offset) or export raw counts")
-    ctx = StackContext(name=st["name"], index=i, cfg=cfg, stack=st, conditions=cond, shape=shape,
-                       dtype=dtype, out_dir=out_dir, camera=camera, materials=materials, options=options)
-    ctx.shared["reader"] = reader
-    ctx.shared["calibration"] = cal
-    ctx.shared["camera_cfg"] = cam
-    key = ["stacks", i]
-    try:
-        _prepare_maps(ctx, cfg, key, cam)
-        _prepare_regions(ctx, cfg, key, st)
-        _prepare_conditions(ctx, cfg, key, cond)
-    except BaseException:
-        reader.close()
-        raise
-    return ctx
-
-
-def _prepare_maps(ctx, cfg, key, cam):
-    rows_cols = ctx.shape[1:]
-    if "gain_map" in cam:
-        with _where(cfg, _cam_key(cfg, ctx.index, "gain_map")):
-            g = read_map(cam["gain_map"], rows_cols, "camera.gain_map").astype(np.float64)
-        with _where(cfg, _cam_key(cfg, ctx.index, "offset_map")):
-            o = read_map(cam["offset_map"], rows_cols, "camera.offset_map").astype(np.float64)
-        if not (np.all(np.isfinite(g)) and np.all(np.isfinite(o))):
-            raise InputDataError(f"{cam['gain_map']}: gain/offset maps contain NaN or infinite values; "
-                                 "recompute them with 'irpipe calibrate'")
-        ctx.shared["nuc"] = (g, o)
-    if "bad_pixel_mask" in cam:
-        with _where(cfg, _cam_key(cfg, ctx.index, "bad_pixel_mask")):
-            m = read_map(cam["bad_pixel_mask"], rows_cols, "camera.bad_pixel_mask") != 0
-        if m.all():
-            raise InputDataError(f"{cam['bad_pixel_mask']}: bad-pixel mask flags every pixel; "
-                                 "it should be non-zero only at bad pixels")
-        ctx.shared["bad_pixel_mask"] = m if m.any() else None
-
-
-def _prepare_regions(ctx, cfg, key, st):
-    rows_cols = ctx.shape[1:]
-    for j, r in enumerate(st.get("regions", [])):
-        prob = None if "mask" in r else geometry_problem(rows_cols, r)
-        if prob:
-            cfg.fail(key + ["regions", j], prob)
-        with _where(cfg, key + ["regions", j, "mask"]):
-            img = read_map(r["mask"], rows_cols, f"region '{r['name']}' mask") if "mask" in r else None
-        m = region_mask(rows_cols, r, img)
-        if not m.any():
-            cfg.fail(key + ["regions", j], f"region '{r['name']}' covers no pixel")
-        ctx.masks[r["name"]] = m
-        ctx.region_cfg[r["name"]] = r
-
-
-def _prepare_conditions(ctx, cfg, key, cond):
-    ekey = _cond_key(cfg, ctx.index, "emissivity")
-    with _where(cfg, ekey):
-        ctx.emissivity = resolve_emissivity(cfg, ekey[:-1], cond["emissivity"], ctx.shape[1:], ctx.materials)
-    # oblique views: stack-wide angle, replaced by a region's own angle for its pixels;
-    # metals (emissivity < 0.5) are left as they are (irpipe.emissivity.apply_view_angles)
-    region_angles = [(n, ctx.masks[n], r["view_angle_deg"]) for n, r in ctx.region_cfg.items()
-                     if r.get("view_angle_deg") is not None]
-    if "view_angle_deg" in cond or region_angles:
-        from .emissivity import apply_view_angles
-        ctx.emissivity, angle_warnings = apply_view_angles(
-            ctx.emissivity, ctx.shape[1:], cond.get("view_angle_deg"), region_angles,
-            cond.get("refractive_index", 1.5))
-        if angle_warnings:
-            ctx.report.setdefault("warnings", []).extend(angle_warnings)
-    refl = cond["reflected_temperature_c"]
-    if isinstance(refl, dict):
-        ctx.shared["reflected_temperature_k"] = None
-        ctx.shared["reflector_mask"] = ctx.masks[refl["reflector"]].ravel()
-    else:
-        ctx.shared["reflected_temperature_k"] = refl + ZERO_CELSIUS
-    tau, desc = path_transmittance(cond, ctx.camera.response, f"{cfg.path.name}, stacks[{ctx.index}] conditions")
-    rng = ctx.shared["camera_cfg"].get("range_c") or DEFAULT_RANGE_C
-    try:
-        ctx.model = MeasurementModel(ctx.camera, tau, (rng[0] + ZERO_CELSIUS, rng[1] + ZERO_CELSIUS))
-    except ValueError as exc:
-        raise ConfigError(f"{cfg.path.name}, camera: {exc}; check the calibration coefficients") from None
-    ctx.report["conditions"] = {
-        "emissivity": ctx.emissivity.description,
-        "reflected_temperature_c": refl if not isinstance(refl, dict) else f"reflector region '{refl['reflector']}'",
-        "air_temperature_c": cond["air_temperature_c"],
-        "relative_humidity_pct": cond.get("relative_humidity_pct"),
-        "distance_m": cond.get("distance_m", 0.0),
-        "path": desc,
-        "band_transmittance_300k": round(ctx.model.describe(), 5),
-        "view_angle_deg": cond.get("view_angle_deg"),
-    }
-    if region_angles:
-        ctx.report["conditions"]["region_view_angles_deg"] = {n: a for n, _, a in region_angles}
-
-
-def resolve_emissivity(cfg, keypath, spec, rows_cols, materials) -> EmissivityField:
-    """Turn the config's emissivity spec into an EmissivityField (reads maps)."""
-    def lib(name, kp):
-        try:
-            return material_emissivity(name, materials)
-        except KeyError as exc:
-            cfg.fail(kp, exc.args[0])
-
-    def unc(name):
-        return float(materials[name].get("uncertainty", 0.0)) if isinstance(name, str) else 0.0
-
-    if isinstance(spec, (int, float)):
-        return EmissivityField(value=float(spec), description=f"{spec:g}")
-    if isinstance(spec, str):
-        return EmissivityField(value=lib(spec, keypath + ["emissivity"]), description=spec, uncertainty=unc(spec))
-    if "map" in spec:
-        m = read_map(spec["map"], rows_cols, "emissivity map").astype(np.float64)
-        bad = ~np.isfinite(m) | (m <= 0) | (m > 1)
-        if bad.any():
-            r, c = np.argwhere(bad)[0]
-            raise InputDataError(f"{spec['map']}: emissivity map has {int(bad.sum())} value(s) outside (0, 1] or NaN "
-                                 f"(first at row {r}, col {c}: {m[r, c]!r}); emissivity must be in (0, 1]")
-        return EmissivityField(map=m, description=f"map {spec['map'].name}")
-    labels = read_map(spec["labels"], rows_cols, "emissivity label image", kind="int")
-    present = np.unique(labels)
-    table = spec["values"]
-    default = spec.get("default")
-    missing = [int(v) for v in present if int(v) not in table]
-    if missing and default is None:
-        cfg.fail(keypath + ["emissivity", "values"],
-              f"label(s) {', '.join(map(str, missing[:10]))} of {spec['labels'].name} have no emissivity; "
-              "add them to values or give default")
-    vals, unc_vals, desc = [], [], []
-    lut = np.zeros(int(present.max()) - int(present.min()) + 1, np.int64)
-    for k, v in enumerate(present):
-        item = table.get(int(v), default)
-        e = lib(item, keypath + ["emissivity", "values", int(v)]) if isinstance(item, str) else float(item)
-        vals.append(e)
-        unc_vals.append(unc(item))
-        desc.append(f"{int(v)}: {item}" + (f" ({e:g})" if isinstance(item, str) else ""))
-        lut[int(v) - int(present.min())] = k
-    index = lut[labels - int(present.min())].astype(np.int32)
-    unused = sorted(set(table) - set(int(v) for v in present))
-    d = f"labels {spec['labels'].name}: " + ", ".join(desc)
-    if unused:
-        d += f" (labels {unused} not in the image)"
-    return EmissivityField(index=index, values=np.asarray(vals), description=d,
-                           uncertainty=np.asarray(unc_vals)[index])
-
-
-# --- running --------------------------------------------------------------------------
 
 @dataclass
 class RunResult:
     report: dict
-    failed: list = field(default_factory=list)   # (stack name, message)
-    skipped: list = field(default_factory=list)
+    failed: list = field(default_factory=list)   # (stack name, message, exception)
+    skipped: list = field(default_factory=list)  # names of stacks skipped by --resume
     out_dir: Path | None = None
 
     @property
@@ -331,254 +48,332 @@ class RunResult:
         return max(getattr(e, "exit_code", 1) for _, _, e in self.failed)
 
 
-def _stack_fingerprint(cfg: Config, i: int, input_hashes: dict):
-    st = cfg.data["stacks"][i]
-    blob = json.dumps({"camera": merged_camera(cfg.data, i), "conditions": merged_conditions(cfg.data, i),
-                       "stack": st, "survey": cfg.data.get("survey", {}),
-                       "uncertainty": cfg.data.get("uncertainty", {}), "inputs": input_hashes,
-                       "version": __version__}, sort_keys=True, default=str)
-    return hashlib.sha256(blob.encode()).hexdigest()
-
-
-def _inputs_of(cfg: Config, i: int, cam=None):
-    """Files a stack depends on."""
-    st = cfg.data["stacks"][i]
-    files = [st["path"]]
-    cam = cam or merged_camera(cfg.data, i)
-    for k in ("spectral_response", "gain_map", "offset_map", "bad_pixel_mask"):
-        if k in cam:
-            files.append(cam[k])
-    if isinstance(cam.get("calibration"), dict) and "file" in cam["calibration"]:
-        files.append(cam["calibration"]["file"])
-    e = merged_conditions(cfg.data, i)["emissivity"]
-    if isinstance(e, dict):
-        files.append(e.get("map") or e.get("labels"))
-    files += [r["mask"] for r in st.get("regions", []) if "mask" in r]
-    if "materials" in cfg.data:
-        files.append(cfg.data["materials"])
-    return files
-
-
-def plan(cfg: Config, out_dir: Path, options=None):
-    """Validate every stack's inputs against the config before any work (no outputs)."""
+def plan(cfg: Config, out_dir: Path, options=None, with_model=True):
+    """Prepare every stack of a config (``irpipe.prepare.prepare_stack``) before any work;
+    returns ``(cameras, materials, contexts)``. Without ``options["keep_going"]`` the first
+    input-data error is raised; with it, a failed stack's entry is ``(index, error)``.
+    ``with_model=False`` checks everything but builds no measurement model (``run``
+    prepares each stack again, fully, when it starts)."""
     options = options or {}
     cameras = {}
     materials = load_materials(cfg)
     contexts = []
     for i in range(len(cfg.data["stacks"])):
         try:
-            ctx = prepare_stack(cfg, i, out_dir, cameras, materials, options)
+            ctx = prepare_stack(cfg, i, out_dir, cameras, materials, options, with_model=with_model)
         except InputDataError as exc:
             if not options.get("keep_going"):
-                for c in contexts:
-                    c.shared["reader"].close()
                 raise
             contexts.append((i, exc))
             continue
-        ctx.shared["reader"].close()
         contexts.append(ctx)
     return cameras, materials, contexts
 
 
-def run(config_path, out_dir=None, *, resume=False, keep_going=False, quiet=True, workers=None,
-        scheduler=None, write_report=True, frame_chunk=None) -> RunResult:
-    """Run a survey config; returns a RunResult. Raises ConfigError / InputDataError when
-    the run cannot start or (without ``keep_going``) a stack fails."""
-    cfg = load_config(config_path)
-    out = Path(out_dir) if out_dir else (cfg.base_dir / cfg.data["output"]["dir"])
-    options = {"keep_going": keep_going, "quiet": quiet, "workers": workers, "scheduler": scheduler,
-               "frame_chunk": frame_chunk or cfg.data["output"]["frame_chunk"],
-               "formats": cfg.data["output"]["formats"]}
-    cameras, materials, contexts = plan(cfg, out, options)
-    out.mkdir(parents=True, exist_ok=True)
-    old_manifest = _read_json(out / MANIFEST)
-    old_stacks = {s["name"]: s for s in (old_manifest or {}).get("stacks", [])}
-    manifest = {"software": "irpipe", "version": __version__, "config": str(cfg.path.name),
-                "config_sha256": sha256(cfg.path), "started_utc": _now(), "stacks": []}
-    results, failed, skipped = [], [], []
-    progress = _progress(quiet)
-    for item in contexts:
-        if isinstance(item, tuple):
-            i, exc = item
-            name = cfg.data["stacks"][i]["name"]
-            failed.append((name, str(exc), exc))
-            manifest["stacks"].append({"name": name, "status": "failed", "error": str(exc)})
-            results.append({"name": name, "status": "failed", "error": str(exc)})
-            continue
-        ctx = item
-        files = _inputs_of(cfg, ctx.index, ctx.shared["camera_cfg"])
-        prev = old_stacks.get(ctx.name)
-
-        def hash_inputs(files=files):
-            return {str(p): sha256(p) for p in files}
-
-        pending = None
-        if resume and prev and prev.get("status") == "done":
-            hashes = hash_inputs()
-            fp = _stack_fingerprint(cfg, ctx.index, hashes)
-            if prev.get("fingerprint") == fp and all((out / f).exists() for f in prev.get("outputs", {}).values()):
-                skipped.append(ctx.name)
-                manifest["stacks"].append(prev)
-                results.append(prev["report"])
-                continue
-        else:
-            # hashing a large stack costs about as much as reading it: do it on the side
-            # while the stack is processed (hashlib releases the GIL)
-            from concurrent.futures import ThreadPoolExecutor
-            pool = ThreadPoolExecutor(1)
-            pending = pool.submit(hash_inputs)
-            pool.shutdown(wait=False)
-        try:
-            t0 = time.perf_counter()
-            rep = run_stack(ctx, progress)
-            rep["seconds"] = round(time.perf_counter() - t0, 3)
-        except IrpipeError as exc:
-            hashes = pending.result() if pending is not None else hashes
-            failed.append((ctx.name, str(exc), exc))
-            manifest["stacks"].append({"name": ctx.name, "status": "failed", "error": str(exc),
-                                       "inputs": hashes})
-            if not keep_going:
-                _write_manifest(out, manifest, old_manifest, partial=True)
-                raise
-            results.append({"name": ctx.name, "status": "failed", "error": str(exc)})
-            continue
-        if pending is not None:
-            hashes = pending.result()
-            fp = _stack_fingerprint(cfg, ctx.index, hashes)
-        manifest["stacks"].append({"name": ctx.name, "status": "done", "fingerprint": fp, "inputs": hashes,
-                                   "outputs": dict(ctx.outputs), "report": rep})
-        results.append(rep)
-    report = build_report(cfg, results)
-    if write_report:
-        write_reports(out, report, contexts, pictures=cfg.data["output"].get("report", True))
-    manifest["finished_utc"] = _now()
-    _write_manifest(out, manifest, old_manifest)
-    return RunResult(report, failed, skipped, out)
-
-
-def _write_manifest(out, manifest, old, partial=False):
-    if partial and old:
-        # keep the record of complete stacks from the earlier run that this run did not reach
-        seen = {s["name"] for s in manifest["stacks"]}
-        manifest["stacks"] += [s for s in old.get("stacks", []) if s["name"] not in seen]
-        manifest["interrupted"] = True
-    write_json_atomic(out / MANIFEST, manifest, compact=True)
-
-
-def _read_json(p):
-    try:
-        return json.loads(Path(p).read_text())
-    except (OSError, ValueError):
-        return None
-
-
-def _now():
-    return _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")
-
-
-def abort_chain(chain, ctx):
-    """Let every stage release and delete what it made (a stack failed)."""
-    for s in chain:
-        try:
-            s.abort(ctx)
-        except Exception:
-            pass
-
-
 def run_stack(ctx: StackContext, progress=None) -> dict:
-    """Stream one stack through its stage chain; returns its report entry."""
+    """Stream one stack through its stage chain (``irpipe.runner.run_chain``), with the
+    pixel work local or on a dask cluster; returns its report entry."""
+    chain = build_chain(ctx)
     if ctx.options.get("workers") or ctx.options.get("scheduler"):
         from .parallel import run_stack_distributed
-        return run_stack_distributed(ctx, progress)
-    reader = StackReader(ctx.stack["path"], f"stack '{ctx.name}'")
-    chain = build_chain(ctx)
-    try:
-        for s in chain:
-            s.start(ctx)
-        size = int(ctx.options.get("frame_chunk") or 32)
-        n = ctx.shape[0]
-        # chunks read ahead in a thread and each stage in its own thread, in frame order
-        # (irpipe.parallel.stream_chain); results are those of the one-thread loop
-        from .parallel import stream_chain
-        chunks = (Chunk(first, reader.read(first, min(n, first + size))) for first in range(0, n, size))
-        stream_chain(chain, ctx, chunks, progress, threads=ctx.options.get("threads", True))
-        for s in chain:
-            s.finish(ctx)
-    except BaseException:
-        abort_chain(chain, ctx)
-        raise
-    finally:
-        reader.close()
+        run_stack_distributed(ctx, chain, progress)
+    else:
+        run_chain(chain, ctx, local_chunks(ctx), progress, threads=ctx.options.get("threads", True))
     rep = {"name": ctx.name, "status": "done", "path": str(ctx.stack["path"].name), "frames": ctx.shape[0],
            "rows": ctx.shape[1], "cols": ctx.shape[2], "assessment": ctx.stack.get("assessment", "general")}
     rep.update(ctx.report)
     rep["outputs"] = dict(ctx.outputs)
-    ctx.shared.pop("reader", None)
     return rep
 
 
+def _report_picture(ctx, out_dir, outputs):
+    """What the report keeps of a stack to draw it: the picture stage's result, or (a stack
+    skipped by --resume) one read back from its written temperature stack; with its region
+    masks. None when there is nothing to draw."""
+    pic = ctx.picture.as_dict() if ctx.picture is not None else None
+    if pic is None:
+        f = (outputs or {}).get("temperature")
+        if f and (Path(out_dir) / f).is_file():
+            from .report import picture_from_tiff
+            try:
+                pic = picture_from_tiff(Path(out_dir) / f)
+            except Exception:       # a picture is not worth failing the report for
+                pic = None
+    if pic is not None and ctx.comparison_picture is not None:    # issue 12
+        pic["compare"] = ctx.comparison_picture
+    return None if pic is None else {**pic, "masks": dict(ctx.masks)}
+
+
+@dataclass
+class _Outcome:
+    """What a stack's run leaves behind (small: no arrays but the report picture)."""
+
+    index: int
+    name: str
+    ok: bool
+    report: dict | None = None
+    error: Exception | None = None
+    fingerprint: str | None = None
+    hashes: dict | None = None
+    outputs: dict = field(default_factory=dict)
+    picture: dict | None = None
+
+
+_WORKER = {}
+
+
+def _worker_state(config_path):
+    """Per-process config, camera models and material library (a job process runs many
+    stacks; they are built once per process)."""
+    key = str(config_path)
+    if _WORKER.get("key") != key:
+        cfg = load_config(config_path)
+        _WORKER.clear()
+        _WORKER.update(key=key, cfg=cfg, cameras={}, materials=load_materials(cfg))
+    return _WORKER["cfg"], _WORKER["cameras"], _WORKER["materials"]
+
+
+def _run_one(cfg, cameras, materials, i, out, options, progress=None, want_picture=True) -> _Outcome:
+    """Prepare and run stack ``i`` into ``out``; hashes its inputs alongside."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    name = cfg.data["stacks"][i]["name"]
+    # hashing a large stack costs about as much as reading it: do it on the side while the
+    # stack is processed (hashlib releases the GIL)
+    with ThreadPoolExecutor(1) as pool:
+        pending = pool.submit(hash_files, stack_inputs(cfg, i))
+        try:
+            t0 = time.perf_counter()
+            ctx = prepare_stack(cfg, i, out, cameras, materials, options)
+            rep = run_stack(ctx, progress)
+            rep["seconds"] = round(time.perf_counter() - t0, 3)
+        except IrpipeError as exc:
+            return _Outcome(i, name, False, error=exc, hashes=pending.result())
+        hashes = pending.result()
+    pic = _report_picture(ctx, out, ctx.outputs) if want_picture else None
+    return _Outcome(i, name, True, report=rep, fingerprint=stack_fingerprint(cfg, i, hashes), hashes=hashes,
+                    outputs=dict(ctx.outputs), picture=pic)
+
+
+def _job(config_path, i, stage_dir, options, want_picture):
+    """One stack in a job process, into its own staging folder."""
+    cfg, cameras, materials = _worker_state(config_path)
+    Path(stage_dir).mkdir(parents=True, exist_ok=True)
+    return _run_one(cfg, cameras, materials, i, Path(stage_dir), dict(options, quiet=True), None, want_picture)
+
+
+def default_jobs() -> int:
+    """Stack processes by default: the machine's cores."""
+    import os
+    return max(1, len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1))
+
+
+def run(config_path, out_dir=None, *, resume=False, keep_going=False, quiet=True, workers=None,
+        scheduler=None, write_report=True, frame_chunk=None, jobs=None) -> RunResult:
+    """Run a survey config; returns a RunResult. Raises ConfigError / InputDataError when
+    the run cannot start or (without ``keep_going``) a stack fails.
+
+    ``jobs``: stacks processed at once in separate processes (default: one; the command
+    line defaults to the machine's cores). Outputs, manifest, report and exit code are
+    those of the serial run: each job writes into a staging folder and its outputs are
+    moved into place in config order, so that without ``keep_going`` a failed stack leaves
+    no output of the stacks after it."""
+    started = time.time()
+    cfg = load_config(config_path)
+    out = Path(out_dir) if out_dir else (cfg.base_dir / cfg.data["output"]["dir"])
+    options = {"keep_going": keep_going, "quiet": quiet, "workers": workers, "scheduler": scheduler,
+               "frame_chunk": frame_chunk or cfg.data["output"]["frame_chunk"] or FRAME_CHUNK,
+               "formats": cfg.data["output"]["formats"]}
+    cameras, materials, checked = plan(cfg, out, options, with_model=False)
+    out.mkdir(parents=True, exist_ok=True)
+    remove_stale_parts(out, before=started)
+    old_manifest = read_manifest(out)
+    old_stacks = {s["name"]: s for s in (old_manifest or {}).get("stacks", [])}
+    manifest = {"software": "irpipe", "version": __version__, "config": str(cfg.path.name),
+                "config_sha256": sha256(cfg.path), "started_utc": now_utc(), "stacks": []}
+    results, failed, skipped, pictures = [], [], [], {}
+    draw = write_report and cfg.data["output"].get("report", True)
+
+    # (1) decide per stack: failed at the check, unchanged (--resume), or to run
+    todo = []
+    for item in checked:
+        if isinstance(item, tuple):
+            todo.append(("checkfail", item[0], item[1]))
+            continue
+        i, name = item.index, item.name
+        prev = old_stacks.get(name)
+        if resume and prev and prev.get("status") == "done":
+            fp = stack_fingerprint(cfg, i, hash_files(stack_inputs(cfg, i)))
+            if prev.get("fingerprint") == fp and all((out / f).exists() for f in prev.get("outputs", {}).values()):
+                todo.append(("skip", i, prev))
+                continue
+        todo.append(("run", i, None))
+    checked = None                      # keep nothing of the check: each stack is prepared anew
+
+    def settle(o: _Outcome):
+        """Record a finished stack in config order; raise when the run must stop."""
+        if o.ok:
+            manifest["stacks"].append({"name": o.name, "status": "done", "fingerprint": o.fingerprint,
+                                       "inputs": o.hashes, "outputs": o.outputs, "report": o.report})
+            results.append(o.report)
+            if o.picture is not None:
+                pictures[o.name] = o.picture
+            return
+        failed.append((o.name, str(o.error), o.error))
+        manifest["stacks"].append({"name": o.name, "status": "failed", "error": str(o.error), "inputs": o.hashes})
+        if not keep_going:
+            write_manifest(out, manifest, old_manifest, partial=True)
+            raise o.error
+        results.append({"name": o.name, "status": "failed", "error": str(o.error)})
+
+    def settle_other(kind, i, extra):
+        name = cfg.data["stacks"][i]["name"]
+        if kind == "checkfail":
+            failed.append((name, str(extra), extra))
+            manifest["stacks"].append({"name": name, "status": "failed", "error": str(extra)})
+            results.append({"name": name, "status": "failed", "error": str(extra)})
+            return
+        skipped.append(name)
+        manifest["stacks"].append(extra)
+        results.append(extra["report"])
+        if draw:
+            ctx = prepare_stack(cfg, i, out, cameras, materials, options, with_model=False)
+            pic = _report_picture(ctx, out, extra.get("outputs"))
+            if pic is not None:
+                pictures[name] = pic
+
+    n_run = sum(1 for k, _, _ in todo if k == "run")
+    jobs = max(1, int(jobs or 1))
+    if any(isinstance((st.get("compare") or {}).get("baseline"), str) for st in cfg.data["stacks"]):
+        # issue 12: a comparison reads its baseline's mean frame from this run, so the stacks
+        # of such a survey run one after another (whole-stack jobs would race)
+        jobs, scheduler_jobs = 1, False
+    else:
+        scheduler_jobs = True
+    if scheduler and n_run > 1 and scheduler_jobs:
+        # a survey of many stacks on a cluster: whole stacks are the unit of work; the
+        # workers read the inputs and write into the (shared) output folder
+        _run_jobs(cfg, todo, out, dict(options, scheduler=None, workers=None), jobs, draw, settle, settle_other,
+                  quiet, scheduler=scheduler)
+    elif jobs > 1 and n_run > 1 and not (workers or scheduler):
+        _run_jobs(cfg, todo, out, options, jobs, draw, settle, settle_other, quiet)
+    else:
+        progress = _progress(quiet)
+        try:
+            for kind, i, extra in todo:
+                if kind != "run":
+                    settle_other(kind, i, extra)
+                    continue
+                settle(_run_one(cfg, cameras, materials, i, out, options, progress, draw))
+        finally:
+            if progress is not None:
+                progress.close()
+    report = build_report(cfg, results)
+    if write_report:
+        write_reports(out, report, pictures, draw=draw)
+    manifest["finished_utc"] = now_utc()
+    write_manifest(out, manifest, old_manifest)
+    return RunResult(report, failed, skipped, out)
+
+
+def _run_jobs(cfg, todo, out, options, jobs, draw, settle, settle_other, quiet, scheduler=None):
+    """Run the stacks of ``todo`` in ``jobs`` processes (or on the workers of the dask
+    cluster at ``scheduler``); settle them in config order and move each stack's outputs
+    from its staging folder into ``out`` as it is settled."""
+    import multiprocessing
+    import shutil
+    import tempfile
+    from concurrent.futures import ProcessPoolExecutor
+
+    stage_root = Path(tempfile.mkdtemp(prefix=".irpipe-jobs.", suffix=".part", dir=out))
+    # fork: the job processes start with irpipe already imported (no import per stack)
+    ctx = multiprocessing.get_context("fork") if "fork" in multiprocessing.get_all_start_methods() else None
+    bar = None
+    if not quiet and sys.stderr.isatty():
+        from tqdm import tqdm
+        bar = tqdm(total=sum(1 for k, _, _ in todo if k == "run"), desc="stacks", unit="stack", file=sys.stderr)
+    if scheduler:
+        try:
+            from distributed import Client
+        except ImportError as exc:
+            raise InputDataError(f"--scheduler needs dask.distributed ({exc}); install irpipe[cluster]") from None
+        pool = Client(scheduler, set_as_default=False)
+    else:
+        pool = ProcessPoolExecutor(max_workers=jobs, mp_context=ctx)
+    try:
+        futures = {}
+        for kind, i, _ in todo:
+            if kind == "run":
+                opts = {k: v for k, v in options.items()}
+                futures[i] = pool.submit(_job, str(cfg.path.resolve()), i, str(stage_root.resolve() / str(i)), opts,
+                                         draw, **({"pure": False} if scheduler else {}))
+        for kind, i, extra in todo:
+            if kind != "run":
+                settle_other(kind, i, extra)
+                continue
+            o = futures.pop(i).result()
+            if bar is not None:
+                bar.update(1)
+            if o.ok:
+                for f in o.outputs.values():
+                    dest = out / f
+                    if dest.is_dir() and not dest.is_symlink():
+                        shutil.rmtree(dest)
+                    (stage_root / str(i) / f).replace(dest)
+                if o.picture is not None:
+                    o.picture = None if not draw else o.picture
+            try:
+                settle(o)
+            except BaseException:
+                for fut in futures.values():
+                    fut.cancel()
+                raise
+    finally:
+        if scheduler:
+            pool.close()
+        else:
+            pool.shutdown(wait=True, cancel_futures=True)
+        if bar is not None:
+            bar.close()
+        shutil.rmtree(stage_root, ignore_errors=True)
+
+
+class _Progress:
+    """Progress bar on stderr (tqdm), one bar per stack, updated after each chunk of frames."""
+
+    def __init__(self, stream):
+        from tqdm import tqdm
+
+        self._tqdm, self._stream, self._bar, self._name = tqdm, stream, None, None
+
+    def __call__(self, name, done, total):
+        if name != self._name:
+            self.close()
+            self._name = name
+            self._bar = self._tqdm(total=total, desc=name[:22], unit="frame", file=self._stream, leave=True,
+                                   dynamic_ncols=True)
+        self._bar.update(done - self._bar.n)
+
+    def close(self):
+        if self._bar is not None:
+            self._bar.close()
+            self._bar = None
+        self._name = None
+
+
 def _progress(quiet, stream=None):
-    """Progress bar on stderr, one line per stack, redrawn after each chunk of frames
-    (frames done, frames per second, time left); None (no output) with --quiet or when
-    stderr is not a terminal."""
+    """A progress callable(name, frames_done, frames_total) drawing a bar per stack on
+    stderr; None (no output) with --quiet or when stderr is not a terminal."""
     stream = stream or sys.stderr
     if quiet or not stream.isatty():
         return None
-    started = {}
-
-    def show(name, done, total):
-        now = time.perf_counter()
-        t0, d0 = started.setdefault(name, (now, done))
-        w = 28
-        k = int(w * done / max(total, 1))
-        rate = (done - d0) / (now - t0) if now > t0 else 0.0
-        left = f"{(total - done) / rate:4.0f} s left" if rate > 0 and done < total else f"{now - t0:5.1f} s"
-        stream.write(f"\r{name[:22]:22s} [{'#' * k}{'.' * (w - k)}] {done}/{total} frames "
-                     f"{rate:5.0f}/s {left}\x1b[K")
-        if done >= total:
-            stream.write("\n")
-        stream.flush()
-    return show
+    return _Progress(stream)
 
 
-# --- report -----------------------------------------------------------------------------
-
-CAUTIONS = [
-    "Findings on electrical equipment are indications for a licensed electrician to assess and repair; "
-    "do not open, touch or load energised equipment on the strength of this report.",
-    "Structural, moisture, mould and safety findings must be assessed by a qualified professional before "
-    "any decision or repair.",
-    "Local building codes, electrical regulations and licensed professional practice prevail over this report.",
-    "Temperatures are surface temperatures inferred from infrared radiation. They depend on the emissivity, "
-    "reflected temperature and path conditions stated for each stack; where these are uncertain (shiny "
-    "metal, glazing, low emissivity, oblique views, sun or wind before the survey) the figures can be wrong "
-    "by several kelvin or more.",
-    "Thermography shows surface temperature patterns, not their cause: missing insulation, air leakage, "
-    "moisture and thermal bridges can look alike and need confirmation by other means.",
-]
-
-
-def build_report(cfg: Config, stacks: list) -> dict:
-    survey = dict(cfg.data.get("survey", {}))
-    warnings = []
-    if "indoor_air_c" in survey and "outdoor_air_c" in survey:
-        from .findings import survey_condition_warnings
-        from .humidity import dew_point
-        warnings += survey_condition_warnings(survey["indoor_air_c"], survey["outdoor_air_c"])
-        if survey.get("indoor_relative_humidity_pct") is not None:
-            td = dew_point(survey["indoor_air_c"] + ZERO_CELSIUS, survey["indoor_relative_humidity_pct"] / 100.0)
-            survey["indoor_dew_point_c"] = round(float(td) - ZERO_CELSIUS, 3)
-        survey["indoor_outdoor_difference_k"] = survey["indoor_air_c"] - survey["outdoor_air_c"]
-    for st in stacks:
-        warnings += [f"{st['name']}: {w}" for w in st.get("warnings", [])]
-    return {"schema": REPORT_SCHEMA, "software": {"name": "irpipe", "version": __version__},
-            "created_utc": _now(), "config": cfg.path.name, "survey": survey,
-            "warnings": warnings, "cautions": list(CAUTIONS), "stacks": stacks}
-
-
-def write_reports(out: Path, report: dict, contexts, pictures=True):
-    """report.json, then the tables and the HTML report (pictures drawn with matplotlib)."""
+def write_reports(out: Path, report: dict, pictures: dict, draw=True):
+    """report.json, then (``draw``) the tables and the HTML report with the stacks'
+    ``pictures`` (stack name -> picture dict, see ``irpipe.report``)."""
     write_json_atomic(out / "report.json", report)
-    if pictures:
-        from .report import pictures_from_contexts, write_all
-        write_all(out, report, pictures_from_contexts(contexts, report, out))
+    if draw:
+        from .report import write_all
+        write_all(out, report, pictures)

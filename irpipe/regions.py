@@ -8,8 +8,11 @@ from __future__ import annotations
 
 import numpy as np
 
-# histogram used for percentiles: 0.01 K bins over the inverse-table range
-_HIST_LO_C, _HIST_HI_C, _HIST_STEP = -120.0, 1000.0, 0.01
+from .defaults import PICTURE_BIN_K, STATISTICS_BIN_K, TABLE_LIMITS_C
+
+# histogram used for percentiles: fine bins over every temperature a table can give
+_HIST_LO_C, _HIST_HI_C = TABLE_LIMITS_C
+_HIST_STEP = STATISTICS_BIN_K
 
 
 def rect_mask(shape, rect):
@@ -70,7 +73,10 @@ class RegionAccumulator:
     """Streaming statistics of one region over all frames of a stack.
 
     Holds O(frames) per-frame summaries and a fixed-size histogram, never the data.
-    Percentiles come from the 0.01 K histogram (resolution 0.01 K).
+    Percentiles come from the histogram of every value (bins of ``STATISTICS_BIN_K``), by
+    the rank rule of ``numpy.percentile``'s default (linear) method applied to the bin
+    centres: each order statistic is replaced by the centre of its bin, so the result is
+    within half a bin (0.005 K) of the exact percentile.
 
     A float chunk whose region values are all finite (the usual case) takes a fast path:
     a rectangle is read as a view, any other shape by one gather; per-frame min/max/sum
@@ -79,12 +85,8 @@ class RegionAccumulator:
     float32. Chunks with invalid values take the general float64 path.
     """
 
-    def __init__(self, name, mask, hist_every=1):
+    def __init__(self, name, mask):
         self.name = name
-        # percentiles from every ``hist_every``-th update (chunk) only: binning costs as
-        # much as all the other statistics together; 1 = exact over all frames
-        self.hist_every = max(1, int(hist_every))
-        self._calls = 0
         self.mask = np.asarray(mask, bool)
         self.idx = np.flatnonzero(self.mask)
         self.pixels = int(self.idx.size)
@@ -149,9 +151,6 @@ class RegionAccumulator:
         if fmax[k] > self.max:
             self.max = float(fmax[k])
             self.max_at = self._where_fast(first_frame + k, int(np.argmax(v[k])))
-        self._calls += 1
-        if (self._calls - 1) % self.hist_every:
-            return
         # histogram bins: (v - lo) / step, truncated (the cast), clipped to the range;
         # a few frames at a time so the integer bins stay small
         np.add(v, typ(-_HIST_LO_C), out=d)
@@ -204,23 +203,27 @@ class RegionAccumulator:
             if vv[j] > self.max:
                 self.max = float(vv[j])
                 self.max_at = self._where(first_frame + j[0], j[1])
-            self._calls += 1
-            if (self._calls - 1) % self.hist_every == 0:
-                b = np.clip(((v[ok] - _HIST_LO_C) / _HIST_STEP).astype(np.int64), 0, self.nbins - 1)
-                self.hist += np.bincount(b, minlength=self.nbins)
+            b = np.clip(((v[ok] - _HIST_LO_C) / _HIST_STEP).astype(np.int64), 0, self.nbins - 1)
+            self.hist += np.bincount(b, minlength=self.nbins)
 
     def _where(self, frame, p):
         r, c = np.unravel_index(self.idx[p], self.mask.shape)
         return {"frame": int(frame), "row": int(r), "col": int(c)}
 
     def percentile(self, q):
+        """The ``q``-th percentile [C], within half a bin of ``numpy.percentile`` (linear
+        method) over every valid value seen; None without values."""
         if self.n == 0:
             return None
         cum = np.cumsum(self.hist)
         if cum[-1] == 0:
             return None
-        k = int(np.searchsorted(cum, q / 100.0 * cum[-1]))
-        return _HIST_LO_C + (k + 0.5) * _HIST_STEP
+        h = (cum[-1] - 1) * q / 100.0          # fractional rank, as numpy's linear method
+        i = int(np.floor(h))
+        j = min(i + 1, int(cum[-1]) - 1)
+        ki, kj = np.searchsorted(cum, [i, j], side="right")   # bins holding ranks i and j
+        ci, cj = _HIST_LO_C + (ki + 0.5) * _HIST_STEP, _HIST_LO_C + (kj + 0.5) * _HIST_STEP
+        return float(ci + (h - i) * (cj - ci))
 
     def result(self):
         """Summary dict for report.json (degrees Celsius)."""
@@ -300,3 +303,23 @@ def local_linear_smooth(image, mask, radius=2):
     few = m & (s0 < 3)
     out[few] = image[few]
     return out
+
+
+# --- the report's temperature histogram ------------------------------------------------
+
+_PIC_LO_C = TABLE_LIMITS_C[0]
+#: bins of the report's temperature histogram (``PICTURE_BIN_K`` wide over ``TABLE_LIMITS_C``)
+PICTURE_BINS = int(round((TABLE_LIMITS_C[1] - TABLE_LIMITS_C[0]) / PICTURE_BIN_K))
+
+
+def picture_bins(values):
+    """Bin of each temperature [C] in the report's histogram (one rule for every path)."""
+    return np.clip(((values - _PIC_LO_C) / PICTURE_BIN_K).astype(np.int64), 0, PICTURE_BINS - 1)
+
+
+def histogram_extent(hist):
+    """(edges [C], counts) of the non-empty span of a report histogram."""
+    nz = np.flatnonzero(hist)
+    if not nz.size:
+        return np.array([]), np.array([], np.int64)
+    return _PIC_LO_C + PICTURE_BIN_K * np.arange(nz[0], nz[-1] + 2), hist[nz[0]:nz[-1] + 1]

@@ -8,6 +8,10 @@ spectrally: the camera receives
     int R(l) { tau(l) [eps B(l, T_obj) + (1 - eps) B(l, T_refl)] + (1 - tau(l)) B(l, T_air) } dl
 
 (Vollmer & Moellmann, Infrared Thermal Imaging, 2nd ed. 2018, sect. 2.4, with tau spectral).
+
+Also written out here, for scenes that need them: the Sakuma-Hattori signal (Planck form,
+docs/references.md §2) and the Fresnel directional emissivity of a dielectric in the
+sine/tangent form of Born & Wolf (docs/references.md §8 gives check values).
 """
 from __future__ import annotations
 
@@ -21,6 +25,36 @@ C2 = sc.h * sc.c / sc.k
 
 def planck(lam, t):
     return C1L / lam**5 / np.expm1(C2 / (lam * t))
+
+
+def sakuma_hattori(t, a, b, c):
+    """Sakuma-Hattori signal S(T) = C / (exp(c2 / (A T + B)) - 1) [units of C], with A [m],
+    B [m K], T [K] (Sakuma & Hattori 1982, Planck form; docs/references.md §2)."""
+    return c / np.expm1(C2 / (a * np.asarray(t, float) + b))
+
+
+def fresnel_dielectric_emissivity(angle_deg, n=1.5):
+    """Directional emissivity 1 - (R_s + R_p) / 2 of a smooth, non-absorbing dielectric of
+    refractive index n, from the Fresnel amplitude ratios in the form of Born & Wolf,
+    Principles of Optics, sect. 1.5.2 (from memory):
+
+        r_s = -sin(i - t) / sin(i + t),   r_p = tan(i - t) / tan(i + t),   sin t = sin i / n
+
+    with the normal-incidence limit r = (n - 1) / (n + 1) at i = 0."""
+    i = np.deg2rad(np.asarray(angle_deg, float))
+    t = np.arcsin(np.sin(i) / n)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        rs = -np.sin(i - t) / np.sin(i + t)
+        rp = np.tan(i - t) / np.tan(i + t)
+    r0 = (n - 1) / (n + 1)
+    rs = np.where(i == 0, -r0, rs)
+    rp = np.where(i == 0, r0, rp)
+    return 1.0 - 0.5 * (rs ** 2 + rp ** 2)
+
+
+def fresnel_dielectric_ratio(angle_deg, n=1.5):
+    """eps(angle) / eps(0) of the dielectric above."""
+    return fresnel_dielectric_emissivity(angle_deg, n) / fresnel_dielectric_emissivity(0.0, n)
 
 
 class Camera:

@@ -14,7 +14,8 @@ import pytest
 import tifffile
 
 from irpipe import alignment as al
-from irpipe.errors import ConfigError
+from irpipe.config import load_config
+from irpipe.errors import ConfigError, InputDataError
 from irpipe.pipeline import run
 from shifted_scenes import CAMERA_YAML, Radiance, counts, pixel_radiance
 
@@ -164,11 +165,18 @@ def test_rejected_frame_kept_as_nan_and_left_out(tmp_path, rad, drift_frames):
     assert st["temporal"]["frames_used"] == 3
 
 
-def test_reference_frame_out_of_range_is_a_config_error(tmp_path, drift_frames):
+def test_reference_frame_out_of_range_is_an_input_error(tmp_path, drift_frames):
     rng = np.random.default_rng(5)
     tifffile.imwrite(tmp_path / "wall.tif", np.stack([counts(f, rng) for f in drift_frames[:2]]), photometric="minisblack")
-    with pytest.raises(ConfigError, match=r"align.reference_frame: frame 7 does not exist: the stack has 2"):
+    with pytest.raises(InputDataError, match=r"wall.tif: stack 'wall' has 2 frame\(s\) \(0 to 1\); "
+                                             r"align.reference_frame 7 does not exist"):
         run(_config(tmp_path, "{reference_frame: 7}"))
+
+
+def test_points_with_similarity_is_a_config_error(tmp_path):
+    (tmp_path / "wall.tif").write_bytes(b"")
+    with pytest.raises(ConfigError, match=r"stacks\[0\].align: give either points .* not both"):
+        load_config(_config(tmp_path, "{transform: similarity, points: [[[1, 2], [3, 4]], [[5, 6], [7, 8]]]}"))
 
 
 def test_align_false_equals_no_align(tmp_path, drift_frames):

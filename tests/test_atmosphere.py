@@ -69,7 +69,7 @@ def test_spectral_transmittance_matches_direct_lowtran7():
 @pytest.mark.parametrize("row", _rows("lowtran7_dossier_band_tau.csv"),
                          ids=lambda r: "{air_temperature_c}C-{relative_humidity_pct}%-{distance_m}m".format(**r))
 def test_band_transmittance_matches_dossier_table(row):
-    # Project dossier refdata/lowtran_band_tau.csv (REFERENCES.md section 4), column
+    # Dossier table (docs/references.md §4; copy in tests/data/lowtran7_dossier_band_tau.csv), column
     # tau_planck300_h2o_mixed: LOWTRAN7 at 1013.25 hPa, 7.5-14 um, 300 K Planck weight.
     # The dossier sampled LOWTRAN7's output every 20 cm-1 instead of 5 cm-1, which shifts the
     # band mean by up to 0.0014 (checked with direct runs); hence 0.002, not the 0.001 above.
@@ -105,7 +105,7 @@ def test_monotone_in_distance_and_humidity():
 
 
 def test_short_path_band_transmittance_is_not_exponential():
-    # Band edges absorb within the first metre (REFERENCES.md section 4, caveat 2): an
+    # Band edges absorb within the first metre (docs/references.md §4, caveat 2): an
     # extinction coefficient fitted at 100 m overestimates the transmittance of a 1 m path.
     # 20 degC, 60 % RH: tau(100 m) = 0.9089, tau(1 m) = 0.9935 in the dossier table, while
     # exp(-k L) through the 100 m value gives 0.9990 at 1 m.

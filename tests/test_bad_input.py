@@ -8,9 +8,10 @@ import numpy as np
 import pytest
 import tifffile
 
+from conftest import linear_camera_yaml
 from irpipe.cli import main
 
-GOOD_CAMERA = "camera: {spectral_band_um: [7.5, 14], calibration: {model: linear, gain: 300, offset_counts: 1000}}\n"
+GOOD_CAMERA = f"camera: {linear_camera_yaml()}\n"
 
 
 def _stack(path, frames=3, shape=(24, 32), value=20000):
@@ -208,6 +209,57 @@ def test_resume_skips_unchanged(tmp_path, capsys):
     assert main(["run", str(cfg), "--out", str(out)]) == 0
     capsys.readouterr()
     assert main(["run", str(cfg), "--out", str(out), "--resume"]) == 0
-    assert "1 unchanged and skipped" in capsys.readouterr().out
+    assert "0 stack(s) processed, 1 unchanged and skipped" in capsys.readouterr().out   # counted once
     man = json.loads((out / "manifest.json").read_text())
     assert man["stacks"][0]["status"] == "done" and len(man["stacks"][0]["inputs"]) == 1
+
+
+def test_stale_temporary_outputs_are_removed_by_the_next_run(tmp_path):
+    """A killed run leaves `.<name>.<random>.part` files and Zarr folders; the next run into
+    the folder removes those older than its own start, and nothing else."""
+    _stack(tmp_path / "a.tif")
+    cfg = _cfg(tmp_path, BASE_COND + "stacks: [{name: a, path: a.tif}]\n")
+    out = tmp_path / "out"
+    out.mkdir()
+    old_file = out / ".a.temperature.tif.x1y2.part"
+    old_dir = out / ".a.temperature.zarr.k3j4.part"
+    keep = out / "notes.part"                       # not a temporary output's name
+    old_file.write_bytes(b"half")
+    old_dir.mkdir()
+    (old_dir / "0.0.0").write_bytes(b"chunk")
+    keep.write_text("mine")
+    t_old = os.path.getmtime(old_file) - 3600
+    for p in (old_file, old_dir, keep):
+        os.utime(p, (t_old, t_old))
+    assert main(["run", str(cfg), "--out", str(out), "--quiet"]) == 0
+    assert not old_file.exists() and not old_dir.exists()
+    assert keep.read_text() == "mine"
+    assert not [p for p in out.iterdir() if p.name.endswith(".part") and p.name.startswith(".")]
+
+
+def test_a_part_file_newer_than_the_run_is_left_alone(tmp_path):
+    """A parallel writer's temporary file (younger than this run's start) is not touched."""
+    import time
+
+    from irpipe.io import remove_stale_parts
+
+    f = tmp_path / ".x.tif.abcd.part"
+    f.write_bytes(b"in progress")
+    assert remove_stale_parts(tmp_path, before=time.time() - 60) == []
+    assert f.exists()
+    assert remove_stale_parts(tmp_path, before=time.time() + 60) == [f.name]
+
+
+def test_schema_into_a_closed_pipe_ends_quietly():
+    """`irpipe schema | head`: the reader has gone before the schema is written (here it
+    closes the pipe at once); the command ends without an error message or traceback."""
+    import subprocess
+    import sys
+
+    p = subprocess.Popen([sys.executable, "-m", "irpipe.cli", "schema"], stdout=subprocess.PIPE,
+                         stderr=subprocess.PIPE)
+    p.stdout.close()                       # the reader is gone before the child writes
+    err = p.stderr.read().decode()
+    p.wait()
+    assert "Error" not in err and "Traceback" not in err, err
+    assert p.returncode in (0, 141), p.returncode      # 141 = 128 + SIGPIPE: quiet too

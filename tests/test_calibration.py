@@ -8,12 +8,19 @@ from irpipe.radiometry import SpectralResponse
 
 
 def test_sakuma_hattori_round_trip():
-    # REFERENCES.md section 2 [C]: A = 9 um, B = 600 um K, C = 1e7: S(300 K) = 1.29447071e5
+    # docs/references.md §2 [C]: A = 9 um, B = 600 um K, C = 1e7: S(300 K) = 1.29447071e5
     a, b, c = 9e-6, 600e-6, 1e7
     assert sakuma_hattori_signal(300.0, a, b, c) == pytest.approx(1.29447071e5, rel=1e-8)
     assert sakuma_hattori_signal(273.15, a, b, c) == pytest.approx(9.13789228e4, rel=1e-8)
     t = np.linspace(220.0, 900.0, 1000)
     assert np.max(np.abs(sakuma_hattori_temperature(sakuma_hattori_signal(t, a, b, c), a, b, c) - t)) < 1e-9
+
+
+def test_scene_side_sakuma_hattori_matches_the_dossier():
+    # the equation the end-to-end scenes use (tests/forward_model.py, written apart from irpipe)
+    # reproduces docs/references.md §2 [C]: A = 9 um, B = 600 um K, C = 1e7 -> S(300 K) = 1.29447071e5
+    from forward_model import sakuma_hattori
+    assert sakuma_hattori(300.0, 9e-6, 600e-6, 1e7) == pytest.approx(1.29447071e5, rel=1e-8)
 
 
 def test_sakuma_hattori_derivative():
@@ -26,7 +33,7 @@ def test_sakuma_hattori_derivative():
 
 
 def test_sakuma_hattori_fit_to_band_model():
-    # REFERENCES.md section 2 [C]: rectangular 8-14 um band radiance fitted over 253-423 K gives
+    # docs/references.md §2 [C]: rectangular 8-14 um band radiance fitted over 253-423 K gives
     # A = 9.33470 um, B = 178.930 um K, C = 6818.648 W m-2 sr-1, max |T_fit - T| = 2.0 mK
     r = SpectralResponse.rectangular(8e-6, 14e-6)
     t = np.linspace(253.0, 423.0, 35)

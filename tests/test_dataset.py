@@ -9,8 +9,6 @@ import irpipe.stages as stages
 from irpipe import __version__, pipeline
 from irpipe.stages.dataset import DatasetWriterStage
 
-from test_parallel import FRAMES, make_survey
-
 
 @pytest.fixture
 def with_dataset_stage(monkeypatch):
@@ -24,9 +22,9 @@ def with_dataset_stage(monkeypatch):
     monkeypatch.setattr(stages, "registry", reg)
 
 
-def test_netcdf_has_cf_attributes_and_the_tiff_values(tmp_path, with_dataset_stage):
+def test_netcdf_has_cf_attributes_and_the_tiff_values(tmp_path, with_dataset_stage, small_survey):
     xr = pytest.importorskip("xarray")
-    cfg = make_survey(tmp_path, chunk=4, formats="[tiff, netcdf]")
+    cfg = small_survey(tmp_path, chunk=4, formats="[tiff, netcdf]")
     res = pipeline.run(cfg, tmp_path / "out", quiet=True)
     out = res.report["stacks"][0]["outputs"]
     assert out["temperature_netcdf"] == "wall.temperature.nc"
@@ -40,17 +38,17 @@ def test_netcdf_has_cf_attributes_and_the_tiff_values(tmp_path, with_dataset_sta
         assert ds.attrs["software_version"] == __version__
         assert ds.attrs["condition_air_temperature_c"] == 1.0
         assert ds.attrs["condition_path"] == "forced flat transmittance 0.97"
-        np.testing.assert_array_equal(ds["frame"].values, np.arange(FRAMES))
+        np.testing.assert_array_equal(ds["frame"].values, np.arange(small_survey.frames))
         tif = tifffile.imread(tmp_path / "out" / "wall.temperature.tif")
         np.testing.assert_array_equal(t.values, tif)
         assert np.isnan(t.values).sum() == np.isnan(tif).sum() > 0
     assert not [p for p in (tmp_path / "out").iterdir() if p.name.endswith(".part")]
 
 
-def test_zarr_store(tmp_path, with_dataset_stage):
+def test_zarr_store(tmp_path, with_dataset_stage, small_survey):
     xr = pytest.importorskip("xarray")
     pytest.importorskip("zarr")
-    cfg = make_survey(tmp_path, chunk=6, formats="[zarr]")
+    cfg = small_survey(tmp_path, chunk=6, formats="[zarr]")
     pipeline.run(cfg, tmp_path / "out", quiet=True)
     with xr.open_zarr(tmp_path / "out" / "wall.temperature.zarr") as ds:
         t = ds["temperature"]
@@ -59,8 +57,8 @@ def test_zarr_store(tmp_path, with_dataset_stage):
         np.testing.assert_array_equal(t.values, tifffile.imread(tmp_path / "out" / "wall.temperature.tif"))
 
 
-def test_failed_stack_leaves_no_dataset(tmp_path, with_dataset_stage, monkeypatch):
-    cfg = make_survey(tmp_path, chunk=4, formats="[tiff, netcdf]")
+def test_failed_stack_leaves_no_dataset(tmp_path, with_dataset_stage, monkeypatch, small_survey):
+    cfg = small_survey(tmp_path, chunk=4, formats="[tiff, netcdf]")
     from irpipe.stages.picture import PictureStage
 
     def boom(self, chunk, ctx):

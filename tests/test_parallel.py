@@ -7,74 +7,9 @@ import numpy as np
 import pytest
 import tifffile
 
-from irpipe import parallel, pipeline
+from irpipe import parallel, pipeline, runner
 from irpipe.config import load_config
-from irpipe.io import StackReader, StackWriter
-
-ROWS, COLS, FRAMES = 40, 56, 23
-
-CONFIG = """
-survey: {{indoor_air_c: 20.0, outdoor_air_c: 1.0, indoor_relative_humidity_pct: 55}}
-camera:
-  spectral_band_um: [7.5, 14.0]
-  input: counts
-  calibration: {{model: linear, gain: 300.0, offset_counts: 1000.0}}
-conditions:
-  emissivity:
-    labels: labels.tif
-    values: {{1: brick-common, 2: glass-uncoated, 3: galvanised-steel-weathered}}
-  reflected_temperature_c: -8.0
-  air_temperature_c: 1.0
-  distance_m: 5
-  atmosphere: {{transmittance: 0.97}}
-stacks:
-  - name: wall
-    path: wall.tif
-    assessment: envelope
-    regions:
-      - {{name: field, rect: [20, 2, 38, 30]}}
-      - {{name: pane, ellipse: {{center: [12, 40], radii: [6, 10]}}}}
-      - {{name: gable, polygon: [[0, 28], [10, 2], [10, 54]]}}
-      - {{name: overlap, rect: [8, 20, 30, 50]}}
-    hotspots: {{above_reference_k: 1.0, reference: median, min_area_px: 2}}
-    coldspots: {{below_reference_k: 1.0, reference: field, min_area_px: 2}}
-output: {{frame_chunk: {chunk}, formats: {formats}}}
-{extra}"""
-
-PER_PIXEL = """
-uncertainty: {emissivity: 0.02, reflected_temperature_k: 2.0, camera_k: 0.5}
-"""
-
-
-def make_survey(folder, chunk=5, formats="[tiff]", per_pixel=False, uncertainty=False):
-    """A small raw stack with label emissivity, drifting hot spot, saturated and
-    below-range pixels (invalid by two reasons), and its config."""
-    rng = np.random.default_rng(11)
-    r, c = np.mgrid[0:ROWS, 0:COLS]
-    labels = np.ones((ROWS, COLS), np.uint8)
-    labels[6:18, 30:50] = 2
-    labels[0:3, :] = 3
-    base = 17000 + 40 * np.sin(r / 7.0) + 30 * np.cos(c / 9.0)
-    frames = []
-    for k in range(FRAMES):
-        hot = 900 * np.exp(-(((r - 25 - k % 5) / 2.0) ** 2 + ((c - 15) / 2.0) ** 2))
-        x = base + hot + rng.normal(0, 11, base.shape)
-        f = np.rint(x).astype(np.uint16)
-        if k % 4 == 1:
-            f[30, 40] = 65535          # saturated
-        if k % 6 == 2:
-            f[5, 5] = 900              # below the calibration range
-        frames.append(f)
-    tifffile.imwrite(folder / "wall.tif", np.array(frames), photometric="minisblack")
-    tifffile.imwrite(folder / "labels.tif", labels)
-    p = folder / "survey.yaml"
-    text = CONFIG.format(chunk=chunk, formats=formats, extra=PER_PIXEL if (per_pixel or uncertainty) else "")
-    if per_pixel:   # reflector method: per-frame reflected temperature, the per-pixel plan
-        text = text.replace("reflected_temperature_c: -8.0", "reflected_temperature_c: {reflector: foil}")
-        text = text.replace("      - {name: overlap,", "      - {name: foil, rect: [30, 44, 36, 52], role: reflector}\n"
-                                                   "      - {name: overlap,")
-    p.write_text(text)
-    return p
+from irpipe.io import StackReader
 
 
 def _stack_report(res):
@@ -84,18 +19,18 @@ def _stack_report(res):
 
 
 @pytest.fixture(scope="module")
-def survey(tmp_path_factory):
+def survey(tmp_path_factory, small_survey):
     folder = tmp_path_factory.mktemp("survey")
-    cfg = make_survey(folder)
+    cfg = small_survey(folder)
     plain = pipeline.run(cfg, folder / "plain", quiet=True)
     return folder, cfg, plain
 
 
-def test_plain_run_counts_invalid_pixels_by_reason(survey):
+def test_plain_run_counts_invalid_pixels_by_reason(survey, small_survey):
     _, _, plain = survey
     inv = _stack_report(plain)["invalid_pixels"]
-    assert inv["saturated"] == len(range(1, FRAMES, 4))
-    assert inv["outside_calibration_range"] == len(range(2, FRAMES, 6))
+    assert inv["saturated"] == len(range(1, small_survey.frames, 4))
+    assert inv["outside_calibration_range"] == len(range(2, small_survey.frames, 6))
 
 
 def test_threaded_stream_equals_one_thread_loop(survey, tmp_path):
@@ -114,23 +49,23 @@ def test_threaded_stream_equals_one_thread_loop(survey, tmp_path):
 
 @pytest.mark.parametrize("per_pixel, with_u", [(False, False), (False, True), (True, True)],
                          ids=["lookup", "lookup+uncertainty", "per-pixel+uncertainty"])
-def test_local_cluster_run_equals_plain_run(survey, tmp_path, per_pixel, with_u):
+def test_local_cluster_run_equals_plain_run(survey, small_survey, tmp_path, per_pixel, with_u):
     distributed = pytest.importorskip("distributed")
     folder, cfg, plain = survey
     if with_u and not per_pixel:
         folder = tmp_path / "lu"
         folder.mkdir()
-        cfg = make_survey(folder, uncertainty=True)
+        cfg = small_survey(folder, uncertainty=True)
         plain = pipeline.run(cfg, folder / "plain", quiet=True)
         rep = _stack_report(plain)
         assert rep["plan"] == "lookup" and "uncertainty" in rep["outputs"]
     if per_pixel:
         folder = tmp_path / "pp"
         folder.mkdir()
-        cfg = make_survey(folder, per_pixel=True)
+        cfg = small_survey(folder, per_pixel=True)
         plain = pipeline.run(cfg, folder / "plain", quiet=True)
         rep = _stack_report(plain)
-        assert rep["plan"] == "per-pixel" and len(rep["reflected_temperature_series_c"]) == FRAMES
+        assert rep["plan"] == "per-pixel" and len(rep["reflected_temperature_series_c"]) == small_survey.frames
         assert "uncertainty" in rep["outputs"]
     with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=False,
                                   dashboard_address=None) as cluster:
@@ -167,7 +102,7 @@ def test_lazy_graph_computes_nothing_until_asked(survey):
     chain = build_chain(ctx)
     for s in chain[:2]:
         s.start(ctx)
-    rad = chain[[s.name for s in chain].index("radiometric")]
+    tables = ctx.tables
 
     class Count(Callback):
         n = 0
@@ -177,7 +112,7 @@ def test_lazy_graph_computes_nothing_until_asked(survey):
 
     with Count():
         raw = parallel.lazy_stack(ctx.stack["path"], ctx.shape, ctx.dtype, 5)
-        t, side = parallel.lazy_temperature(raw, parallel.PixelKernel([], rad))
+        t, side = parallel.lazy_temperature(raw, tables)
         assert t.dims == ("frame", "row", "col") and t.chunks[0] == (5, 5, 5, 5, 3)
         assert t.attrs["units"] == "degC"
         assert Count.n == 0                        # building the graph ran no task
@@ -185,7 +120,7 @@ def test_lazy_graph_computes_nothing_until_asked(survey):
         assert Count.n > 0
     with StackReader(ctx.stack["path"]) as r:
         raw_np = r.read(5, 10)
-    want = rad.lut_flat.take(np.add(raw_np, rad.offsets, dtype=np.int64) if rad.offsets is not None else raw_np)
+    want = tables.lut_c.ravel().take(tables.index_of(raw_np))
     np.testing.assert_array_equal(block.values, want)
 
 
@@ -215,7 +150,7 @@ def test_stream_chain_reraises_a_stage_error_after_stopping_threads():
     seen = Seen()
     chunks = (Chunk(k, np.zeros((2, 2, 2))) for k in range(0, 20, 2))
     with pytest.raises(RuntimeError, match="boom at 6"):
-        parallel.stream_chain([Boom(), seen], Ctx(), chunks)
+        runner.stream_chain([Boom(), seen], Ctx(), chunks)
     assert seen.firsts == [0, 2, 4]                # in order, nothing after the failure
 
 
@@ -228,7 +163,6 @@ def test_stream_chain_keeps_frame_order_in_every_stage():
 
         def process(self, chunk, ctx):
             self.firsts.append(chunk.first)
-            chunk.extras[self.name] = True
 
     class Ctx:
         shape = (300, 1, 1)
@@ -236,42 +170,11 @@ def test_stream_chain_keeps_frame_order_in_every_stage():
 
     stages = [Rec(f"s{k}") for k in range(5)]
     done = []
-    parallel.stream_chain(stages, Ctx(), (Chunk(k, np.zeros((3, 1, 1))) for k in range(0, 300, 3)),
+    runner.stream_chain(stages, Ctx(), (Chunk(k, np.zeros((3, 1, 1))) for k in range(0, 300, 3)),
                           progress=lambda name, d, n: done.append(d))
     for s in stages:
         assert s.firsts == list(range(0, 300, 3))
     assert done == list(range(3, 301, 3))
-
-
-def test_reader_fast_path_and_fallbacks_agree(tmp_path):
-    rng = np.random.default_rng(2)
-    data = rng.integers(0, 65535, (9, 7, 5)).astype(np.uint16)
-    tifffile.imwrite(tmp_path / "contig.tif", data, photometric="minisblack")
-    tifffile.imwrite(tmp_path / "zlib.tif", data, photometric="minisblack", compression="zlib")
-    with tifffile.TiffWriter(tmp_path / "pages.tif") as tw:      # IFDs between the pages
-        for f in data:
-            tw.write(f, contiguous=False, photometric="minisblack")
-    with tifffile.TiffWriter(tmp_path / "big.tif", byteorder=">") as tw:
-        tw.write(data, photometric="minisblack")
-    for name, fast in (("contig", True), ("zlib", False), ("pages", True), ("big", False)):
-        with StackReader(tmp_path / f"{name}.tif") as r:
-            assert r.shape == data.shape
-            np.testing.assert_array_equal(r.read(0, 9), data)
-            np.testing.assert_array_equal(r.read(2, 7), data[2:7])
-            assert (r._page_offsets() is not None) == fast, name
-
-
-def test_writer_chunks_make_one_series(tmp_path):
-    a = np.random.default_rng(3).normal(size=(11, 6, 8)).astype(np.float32)
-    w = StackWriter(tmp_path / "t.tif", a.shape, '{"units": "degC"}')
-    for s in range(0, 11, 4):
-        w.write(a[s:s + 4])
-    w.commit()
-    with tifffile.TiffFile(tmp_path / "t.tif") as t:
-        assert len(t.series) == 1 and t.series[0].shape == a.shape
-        assert t.pages[0].description == '{"units": "degC"}'
-        np.testing.assert_array_equal(t.asarray(), a)
-    assert [p.name for p in tmp_path.iterdir()] == ["t.tif"]
 
 
 def test_picture_histogram_from_table_counts_equals_binning_pixels(survey, tmp_path):
@@ -282,9 +185,98 @@ def test_picture_histogram_from_table_counts_equals_binning_pixels(survey, tmp_p
     _, _, ctxs = pipeline.plan(c, tmp_path, {"frame_chunk": 5, "formats": ["tiff"]})
     rep = pipeline.run_stack(ctxs[0])
     assert rep["plan"] == "lookup"
-    got = ctxs[0].shared["picture"]
+    got = ctxs[0].picture.as_dict()
     want = picture_from_tiff(tmp_path / "wall.temperature.tif")
     np.testing.assert_array_equal(got["hist_counts"], want["hist_counts"])
     np.testing.assert_array_equal(got["hist_edges_c"], want["hist_edges_c"])
     # (the mean image's float32 sums run over other frame groups: equal to rounding)
     np.testing.assert_allclose(got["mean_c"], want["mean_c"], rtol=0, atol=1e-4)
+
+
+# --- one kernel, every way of running it -------------------------------------------------
+
+def test_lookup_and_per_pixel_plans_give_the_same_temperatures(survey, tmp_path):
+    """The same scene through both plans of the one pixel kernel: the label emissivity as
+    labels (lookup plan, float64 tables) and as an equal float map (per-pixel plan,
+    float32 arithmetic). Tolerance: the per-pixel plan's float32 working precision,
+    documented as within 0.01 K of float64 (irpipe.kernel)."""
+    from irpipe.emissivity import material_emissivity
+    from irpipe.prepare import load_materials
+
+    folder, cfg, plain = survey
+    labels = tifffile.imread(folder / "labels.tif")
+    lib = load_materials(load_config(cfg))
+    eps = {1: "brick-common", 2: "glass-uncoated", 3: "galvanised-steel-weathered"}
+    emap = np.zeros(labels.shape, np.float32)
+    for k, name in eps.items():
+        emap[labels == k] = material_emissivity(name, lib)
+    tifffile.imwrite(folder / "emissivity_map.tif", emap)
+    text = cfg.read_text()
+    start = text.index("  emissivity:")
+    end = text.index("  reflected_temperature_c")
+    (folder / "map.yaml").write_text(text[:start] + "  emissivity: {map: emissivity_map.tif}\n" + text[end:])
+    res = pipeline.run(folder / "map.yaml", tmp_path / "map", quiet=True)
+    assert _stack_report(res)["plan"] == "per-pixel" and _stack_report(plain)["plan"] == "lookup"
+    a = tifffile.imread(tmp_path / "map" / "wall.temperature.tif")
+    b = tifffile.imread(folder / "plain" / "wall.temperature.tif")
+    np.testing.assert_array_equal(np.isnan(a), np.isnan(b))
+    ok = np.isfinite(a)
+    assert np.abs(a[ok] - b[ok]).max() < 0.01
+    assert _stack_report(res)["invalid_pixels"] == _stack_report(plain)["invalid_pixels"]
+
+
+def test_field_command_reads_the_signal_the_run_corrects(survey, small_survey):
+    """measure_regions (irpipe emissivity) runs the stack's own chain: the region signal it
+    returns, put through the measurement equation with the stack's emissivity, gives the
+    run's frame-averaged temperatures (equal in signal units; frames averaged in signal)."""
+    from irpipe.cli_field import measure_regions
+    from irpipe.constants import ZERO_CELSIUS
+
+    folder, cfg, plain = survey
+    m = measure_regions(cfg, "wall", ["field"])
+    sig = m["signal"]["field"]
+    from irpipe.prepare import load_materials
+    from irpipe.emissivity import material_emissivity
+    eps = material_emissivity("brick-common", load_materials(load_config(cfg)))
+    t_mean_signal = m["model"].object_temperature(sig, eps, m["reflected_temperature_k"],
+                                                  m["air_temperature_k"]) - ZERO_CELSIUS
+    temp = tifffile.imread(folder / "plain" / "wall.temperature.tif")[:, 20:38, 2:30].reshape(small_survey.frames, -1)
+    # the run's temperatures turned back into signal and averaged over frames
+    model = m["model"]
+    g_refl, path = model.background(eps, m["reflected_temperature_k"], m["air_temperature_k"])
+    s_run = eps * model.path_signal(temp.astype(np.float64) + ZERO_CELSIUS) + (1 - eps) * g_refl + path
+    want = model.object_temperature(np.nanmean(s_run, axis=0), eps, m["reflected_temperature_k"],
+                                    m["air_temperature_k"]) - ZERO_CELSIUS
+    np.testing.assert_allclose(t_mean_signal, want, atol=2e-3)
+
+
+@pytest.mark.parametrize("edit, key", [
+    (("hotspots: {above_reference_k: 1.0, reference: median, min_area_px: 2}", "hotspots: {min_area_px: 2}"),
+     "hotspots: no threshold"),
+    (("hotspots: {above_reference_k: 1.0, reference: median, min_area_px: 2}",
+      "hotspots: {above_reference_k: 1.0, min_area_px: 2}"), "above_reference_k is relative to a reference"),
+    (("      - {name: overlap, rect: [8, 20, 30, 50]}",
+      "      - {name: overlap, rect: [8, 20, 30, 50], role: component, reference: nowhere}"),
+     "'nowhere' is not a region of this stack"),
+    (("reflected_temperature_c: -8.0", "reflected_temperature_c: {reflector: field, reflector_emissivity: 0.6}"),
+     "a reflector of emissivity 0.6 is not a reflector"),
+], ids=["spot-without-threshold", "relative-without-reference", "unknown-electrical-reference",
+        "reflector-emissivity"])
+def test_validate_rejects_late_config_errors(tmp_path, edit, key, small_survey):
+    """Each error a stage could once raise mid-run is caught by `irpipe validate`: one
+    line naming the file and key, exit 2, and `irpipe run` writes no output."""
+    import subprocess
+    import sys
+
+    cfg = small_survey(tmp_path)
+    text = cfg.read_text()
+    assert edit[0] in text
+    cfg.write_text(text.replace(edit[0], edit[1]))
+    r = subprocess.run([sys.executable, "-m", "irpipe.cli", "validate", str(cfg)], capture_output=True, text=True)
+    assert r.returncode == 2, r.stderr
+    lines = r.stderr.strip().splitlines()
+    assert len(lines) == 1 and "survey.yaml" in lines[0] and key in lines[0], r.stderr
+    r = subprocess.run([sys.executable, "-m", "irpipe.cli", "run", str(cfg), "--out", str(tmp_path / "out"),
+                        "--quiet"], capture_output=True, text=True)
+    assert r.returncode == 2
+    assert not (tmp_path / "out").exists() or not any((tmp_path / "out").iterdir())

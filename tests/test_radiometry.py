@@ -18,7 +18,7 @@ def test_constants_match_codata():
 
 @pytest.mark.parametrize("lam_um, t, expected", [
     # Planck spectral radiance [W m-2 sr-1 um-1] computed from CODATA 2018 constants
-    # (shared dossier REFERENCES.md section 1, [C] values; rounded to 7 digits)
+    # (docs/references.md §1, [C] values; rounded to 7 digits)
     (10.0, 300.0, 9.924033), (10.0, 273.15, 6.174355), (8.0, 300.0, 9.078357),
     (14.0, 300.0, 7.445671), (10.0, 373.15, 25.74419),
 ])
@@ -40,7 +40,7 @@ def test_stefan_boltzmann_total(t):
 
 def test_wien_peak():
     # Wien displacement, b = 2.897771955e-3 m K (CODATA 2018)
-    assert wien_peak_wavelength(300.0) == pytest.approx(9.659240e-6, rel=1e-6)   # REFERENCES.md [C]
+    assert wien_peak_wavelength(300.0) == pytest.approx(9.659240e-6, rel=1e-6)   # docs/references.md §1 [C]
     assert wien_peak_wavelength(5800.0) == pytest.approx(0.499616e-6, rel=1e-5)
     assert constants.C2 / (wien_peak_wavelength(1.0)) == pytest.approx(4.965114232, rel=1e-9)
     # and it really is the maximum of planck_radiance
@@ -49,7 +49,7 @@ def test_wien_peak():
 
 
 @pytest.mark.parametrize("band, t, fraction", [
-    # blackbody fraction F(lambda1..lambda2) (REFERENCES.md section 1, series and quadrature agree to 1e-6)
+    # blackbody fraction F(lambda1..lambda2) (docs/references.md §1, series and quadrature agree to 1e-6)
     ((8e-6, 14e-6), 273.15, 0.349851), ((8e-6, 14e-6), 300.0, 0.375742), ((8e-6, 14e-6), 373.15, 0.390860),
     ((7.5e-6, 14e-6), 300.0, 0.405689), ((8e-6, 12e-6), 300.0, 0.263341), ((3e-6, 5e-6), 300.0, 0.012763),
 ])
@@ -59,7 +59,7 @@ def test_band_fraction(band, t, fraction):
 
 
 def test_band_radiance_value():
-    # 8-14 um band radiance at 300 K: 54.9335 W m-2 sr-1 (REFERENCES.md section 1, [C])
+    # 8-14 um band radiance at 300 K: 54.9335 W m-2 sr-1 (docs/references.md §1, [C])
     assert SpectralResponse.rectangular(8e-6, 14e-6).band_radiance(300.0) == pytest.approx(54.9335, abs=1e-4)
 
 

@@ -57,7 +57,7 @@ def test_local_linear_smooth_keeps_gradients_at_edges():
     assert np.std((local_linear_smooth(noisy, mask) - ramp)[inner]) < 0.05   # ~0.1/sqrt(25)*(1+)
 
 
-def test_ellipse_spellings(tmp_path):
+def test_ellipse_spellings(tmp_path, linear_camera):
     # config edge: {center}, {centre} and [row, col, rr, rc] give the same region (project convention)
     import tifffile
     from irpipe.pipeline import run
@@ -65,7 +65,7 @@ def test_ellipse_spellings(tmp_path):
     forms = ["{center: [15, 20], radii: [6, 9]}", "{centre: [15, 20], radii: [6, 9]}", "[15, 20, 6, 9]"]
     regs = "".join(f"      - {{name: e{k}, ellipse: {f}}}\n" for k, f in enumerate(forms))
     (tmp_path / "c.yaml").write_text(
-        "camera: {spectral_band_um: [8, 14], calibration: {model: linear, gain: 300, offset_counts: 1000}}\n"
+        f"camera: {linear_camera((8, 14))}\n"
         "conditions: {emissivity: 0.9, reflected_temperature_c: 10, air_temperature_c: 10}\n"
         "stacks:\n  - name: s\n    path: s.tif\n    regions:\n" + regs)
     res = run(tmp_path / "c.yaml", tmp_path / "o", write_report=False)

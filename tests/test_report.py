@@ -30,8 +30,7 @@ _DEMO = {}
 
 def demo_run(base: Path):
     """Write and process the demo survey once per session; returns (report, pictures,
-    out_dir). Pictures are built from the stack contexts exactly as
-    pipeline.write_reports is to build them (irpipe.report.pictures_from_contexts)."""
+    out_dir). The pictures are those the pipeline hands to the report writer."""
     if "run" in _DEMO:
         return _DEMO["run"]
     import irpipe.pipeline as pipeline
@@ -43,9 +42,9 @@ def demo_run(base: Path):
     captured = {}
     original = pipeline.write_reports
 
-    def capture(out_dir, report, contexts, pictures=True):
-        original(out_dir, report, contexts, pictures=False)
-        captured["pictures"] = rp.pictures_from_contexts(contexts, report, out_dir)
+    def capture(out_dir, report, pictures, draw=True):
+        original(out_dir, report, pictures, draw=False)
+        captured["pictures"] = pictures
 
     pipeline.write_reports = capture
     try:

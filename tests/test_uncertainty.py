@@ -20,13 +20,13 @@ K0 = 273.15
 
 @pytest.fixture(scope="module")
 def band_8_14():
-    # REFERENCES.md section 3/9: ideal 8-14 um band radiance as the camera signal
+    # docs/references.md §3/§9: ideal 8-14 um band radiance as the camera signal
     cam = CameraModel(SpectralResponse.rectangular(8e-6, 14e-6))
     return cam, MeasurementModel(cam, 0.985)
 
 
 def case_b(cam, base):
-    """REFERENCES.md section 9 case B (facade at night): T_obj 2 C, eps 0.93, T_refl -25 C,
+    """docs/references.md §9 case B (facade at night): T_obj 2 C, eps 0.93, T_refl -25 C,
     T_atm 0 C, tau 0.985. The dossier's u(tau) = 0.01 enters here through the distance:
     tau(d) = exp(-a d) with tau(10 m) = 0.985, u(d) = 0.01 / |dtau/dd|."""
     d0 = 10.0
@@ -43,7 +43,7 @@ def case_b(cam, base):
 
 def test_case_b_signal(band_8_14):
     cam, base = band_8_14
-    # REFERENCES.md section 3 [C]: case B S_meas = 35.386362 W m-2 sr-1
+    # docs/references.md §3 [C]: case B S_meas = 35.386362 W m-2 sr-1
     assert base.received_signal(2.0 + K0, 0.93, -25.0 + K0, K0) == pytest.approx(35.386362, abs=2e-5)
 
 
@@ -51,8 +51,8 @@ def test_case_b_sensitivities_and_combined_uncertainty(band_8_14):
     cam, base = band_8_14
     s, u, models, d0, a = case_b(cam, base)
     t0, c = sensitivity_coefficients(s, 0.93, -25.0 + K0, K0, 0.5, d0, models)
-    assert float(t0) - K0 == pytest.approx(2.0, abs=1e-4)      # REFERENCES.md section 3: case B T_obj 2 C
-    # REFERENCES.md section 9 [C], case B sensitivity coefficients (rounded as printed there)
+    assert float(t0) - K0 == pytest.approx(2.0, abs=1e-4)      # docs/references.md §3: case B T_obj 2 C
+    # docs/references.md §9 [C], case B sensitivity coefficients (rounded as printed there)
     assert float(c["camera"]) == pytest.approx(1.0718, abs=2e-4)
     assert float(c["emissivity"]) == pytest.approx(-24.77, abs=0.01)
     assert float(c["reflected_temperature"]) == pytest.approx(-0.0535, abs=1e-4)
@@ -60,7 +60,7 @@ def test_case_b_sensitivities_and_combined_uncertainty(band_8_14):
     dt_dtau = float(c["distance"]) / (-a * 0.985)             # chain rule through tau(d)
     assert dt_dtau == pytest.approx(-0.399, abs=2e-3)
     assert float(c["relative_humidity"]) == 0.0              # this path does not depend on RH
-    # REFERENCES.md section 9 [C]: GUM u_c = 1.186 K
+    # docs/references.md §9 [C]: GUM u_c = 1.186 K
     uc, parts = gum_uncertainty(s, 0.93, -25.0 + K0, K0, 0.5, d0, u, models, budget=True)
     assert float(uc) == pytest.approx(1.186, abs=1e-3)
     assert float(parts["emissivity"]) == pytest.approx(0.495, abs=1e-3)     # |c_i| u_i, same table
@@ -74,7 +74,7 @@ def test_case_b_monte_carlo(band_8_14):
     s, u, models, d0, _ = case_b(cam, base)
     mc = monte_carlo_uncertainty(s, 0.93, -25.0 + K0, K0, 0.5, d0, u, models, trials=200_000, seed=12345,
                                  path_draws=16)
-    # REFERENCES.md section 9 [C]: MC (N = 2e5) mean 2.009 C, s.d. 1.185 K, 95 % interval
+    # docs/references.md §9 [C]: MC (N = 2e5) mean 2.009 C, s.d. 1.185 K, 95 % interval
     # [-0.29, 4.36] C; suggested tolerance: MC s.d. within 0.02 K of GUM (near-linear case).
     assert mc.std[0] == pytest.approx(1.186, abs=0.02)
     assert mc.mean[0] - K0 == pytest.approx(2.009, abs=0.02)
@@ -99,7 +99,9 @@ def test_gum_against_monte_carlo(band_8_14, label, t_c, eps, expected_u):
     mc = monte_carlo_uncertainty(s, eps, refl, air, 0.85, 9.0, u, models, trials=200_000, seed=7)
     # JCGM 101:2008 Sect. 8 validates the GUM result against MC; the brief asks for 10 %
     assert uc == pytest.approx(mc.std[0], rel=0.10), f"{label}: GUM {uc:.3f} K, MC {mc.std[0]:.3f} K"
-    assert 2 * uc == pytest.approx(expected_u, rel=0.25)     # brief's rounded figures
+    # the brief's figures (0.7 K, 14 K), rounded to one and two significant digits: within
+    # 10 %, what GUM vs Monte Carlo supports here (above)
+    assert 2 * uc == pytest.approx(expected_u, rel=0.10), f"{label}: U = {2 * uc:.3f} K"   # 0.760, 13.27 K
 
 
 def test_vectorised_matches_scalar(band_8_14):
@@ -171,7 +173,7 @@ def _independent_mc(cam, grid, band, t_c, eps, n=60_000, seed=11):
 
 
 @pytest.fixture(scope="module")
-def e2e(tmp_path_factory):
+def e2e(tmp_path_factory, camera_yaml):
     tmp = tmp_path_factory.mktemp("unc")
     cam = Camera(7.5, 14.0)
     t, lab, eps, regions = _scene()
@@ -186,7 +188,7 @@ def e2e(tmp_path_factory):
     for plan, emiss in (("lookup", "{labels: labels.tif, values: {1: 0.93, 2: 0.28}}"), ("per-pixel", "{map: emap.tif}")):
         cfg = tmp / f"{plan}.yaml"
         cfg.write_text(f"""
-camera: {{spectral_band_um: [7.5, 14.0], input: counts, calibration: {{model: linear, gain: 300.0, offset_counts: 1000.0}}}}
+camera: {camera_yaml}
 conditions:
   emissivity: {emiss}
   reflected_temperature_c: {T_REFL_C}
@@ -224,8 +226,9 @@ def test_end_to_end_uncertainty(e2e, plan):
     by = {r["name"]: r for r in st["regions"]}
     for name in regions:
         r = by[name]
-        # brief: per-region figures consistent with an independent Monte Carlo within 15 %
-        assert r["expanded_uncertainty_k"] == pytest.approx(mc[name], rel=0.15), (name, r, mc[name])
+        # per-region figures consistent with an independent Monte Carlo (JCGM 101:2008, written
+        # in this file on tests/forward_model.py) within 10 %, as GUM vs MC above
+        assert r["expanded_uncertainty_k"] == pytest.approx(mc[name], rel=0.10), (name, r, mc[name])
         assert r["coverage_factor"] == 2
         # forced flat transmittance: RH and distance cannot change the path (measurement equation)
         assert r["uncertainty_budget_k"]["relative_humidity_pct"] == 0
@@ -245,13 +248,13 @@ def test_plans_agree(e2e):
     assert np.nanmax(np.abs(a - b) / a) < 1e-3
 
 
-def test_stage_only_with_nonzero_section(tmp_path):
+def test_stage_only_with_nonzero_section(tmp_path, linear_camera):
     from irpipe.config import load_config
     from irpipe.pipeline import plan
     from irpipe.stages import build_chain
 
     tifffile.imwrite(tmp_path / "s.tif", np.full((1, 8, 8), 20000, np.uint16), photometric="minisblack")
-    base = ("camera: {spectral_band_um: [8, 14], calibration: {model: linear, gain: 300, offset_counts: 1000}}\n"
+    base = (f"camera: {linear_camera((8, 14))}\n"
             "conditions: {emissivity: 0.9, reflected_temperature_c: 10, air_temperature_c: 10}\n"
             "stacks: [{name: s, path: s.tif}]\n")
     for extra, expected in (("", False), ("uncertainty: {emissivity: 0, camera_k: 0}\n", False),

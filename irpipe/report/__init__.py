@@ -9,9 +9,9 @@ returns their names. ``pictures[stack_name]`` is a dict with
 * ``hist_edges_c``, ``hist_counts``: histogram of all valid values of all frames;
 * ``masks``: {region name: (M, N) bool}.
 
-``pictures_from_contexts`` builds it from the pipeline's stack contexts (the picture
-stage's ``ctx.shared["picture"]`` plus ``ctx.masks``), reading the written temperature
-stack for stacks that were skipped by ``--resume``.
+The pipeline keeps one such dict per stack (the picture stage's ``ctx.picture`` plus the
+region masks) or, for stacks skipped by ``--resume``, reads it back from the written
+temperature stack with ``picture_from_tiff``.
 
 Matplotlib is imported only while pictures are drawn.
 """
@@ -22,8 +22,7 @@ from pathlib import Path
 from ..io import write_text_atomic
 from .tables import build_findings, findings_csv, region_rows, regions_csv
 
-__all__ = ["write_all", "build_findings", "region_rows", "pictures_from_contexts", "picture_from_tiff",
-           "FILES"]
+__all__ = ["write_all", "build_findings", "region_rows", "picture_from_tiff", "FILES"]
 
 FILES = ("regions.csv", "findings.csv", "report.html")
 
@@ -46,17 +45,16 @@ def write_all(out_dir: Path, report: dict, pictures: dict) -> list[str]:
 
 def picture_from_tiff(path, chunk=16):
     """A picture dict (without masks) from a written ``<stack>.temperature.tif``, streamed
-    in chunks of frames; same binning as the picture stage."""
+    in chunks of frames; same binning as the picture stage (``irpipe.regions.picture_bins``)."""
     import numpy as np
 
     from ..io import StackReader
-    from ..stages.picture import HIST_HI_C, HIST_LO_C, HIST_STEP
+    from ..regions import PICTURE_BINS, histogram_extent, picture_bins
 
-    nb = int(round((HIST_HI_C - HIST_LO_C) / HIST_STEP))
     with StackReader(path, "temperature stack") as r:
         total = np.zeros(r.shape[1:], np.float64)
         cnt = np.zeros(r.shape[1:], np.int64)
-        hist = np.zeros(nb, np.int64)
+        hist = np.zeros(PICTURE_BINS, np.int64)
         first = None
         for _, t in r.chunks(chunk):
             t = t.astype(np.float32, copy=False)
@@ -65,36 +63,8 @@ def picture_from_tiff(path, chunk=16):
             cnt += ok.sum(0)
             if first is None:
                 first = t[0].copy()
-            b = np.clip(((t[ok] - HIST_LO_C) / HIST_STEP).astype(np.int64), 0, nb - 1)
-            hist += np.bincount(b, minlength=nb)
+            hist += np.bincount(picture_bins(t[ok]), minlength=PICTURE_BINS)
     with np.errstate(invalid="ignore", divide="ignore"):
         mean = np.where(cnt > 0, total / np.maximum(cnt, 1), np.nan).astype(np.float32)
-    nz = np.flatnonzero(hist)
-    return {"mean_c": mean, "first_c": first,
-            "hist_edges_c": (HIST_LO_C + HIST_STEP * np.arange(nz[0], nz[-1] + 2)) if nz.size else np.array([]),
-            "hist_counts": hist[nz[0]:nz[-1] + 1] if nz.size else np.array([], np.int64)}
-
-
-def pictures_from_contexts(contexts, report=None, out_dir=None) -> dict:
-    """``pictures`` for :func:`write_all` from the pipeline's stack contexts.
-
-    ``contexts`` is the list from ``pipeline.plan`` (failed entries, tuples, are ignored).
-    A context without a picture (stack skipped by ``--resume``) gets one read from its
-    temperature stack in ``out_dir``, named by the stack's ``outputs`` in ``report``."""
-    outputs = {s.get("name"): s.get("outputs") or {} for s in (report or {}).get("stacks", [])}
-    pics = {}
-    for ctx in contexts:
-        if isinstance(ctx, tuple):
-            continue
-        pic = ctx.shared.get("picture")
-        if pic is None and out_dir is not None:
-            f = outputs.get(ctx.name, {}).get("temperature")
-            if f and (Path(out_dir) / f).is_file():
-                try:
-                    pic = picture_from_tiff(Path(out_dir) / f)
-                except Exception:       # a picture is not worth failing the report for
-                    pic = None
-        if pic is None:
-            continue
-        pics[ctx.name] = {**pic, "masks": dict(ctx.masks)}
-    return pics
+    edges, counts = histogram_extent(hist)
+    return {"mean_c": mean, "first_c": first, "hist_edges_c": edges, "hist_counts": counts}

@@ -10,6 +10,9 @@ the pictures are said to be unavailable.
 """
 from __future__ import annotations
 
+import base64
+from html import escape
+
 import numpy as np
 
 DIFFERENCE_CMAP = "RdBu_r"     # matplotlib diverging map: blue colder, red warmer
@@ -76,9 +79,40 @@ def checkerboard_png(board):
     return _png(fig)
 
 
-def _alignment_html(al):
-    from .html import _e, _f, _table
+# small formatting helpers of this section (the report's own live in report.html, which
+# imports this module)
 
+def _e(x):
+    return escape("" if x is None else str(x))
+
+
+def _f(x, nd=2):
+    try:
+        v = float(x)
+    except (TypeError, ValueError):
+        return "–"
+    return f"{v:.{nd}f}" if np.isfinite(v) else "–"
+
+
+def _img(png, alt, width):
+    return f'<img src="data:image/png;base64,{base64.b64encode(png).decode("ascii")}" alt="{_e(alt)}" width="{width}">'
+
+
+def _kv(rows):
+    body = "".join(f"<tr><th>{_e(k)}</th><td>{v}</td></tr>" for k, v in rows if v not in (None, ""))
+    return f'<table class="kv"><tbody>{body}</tbody></table>'
+
+
+def _table(head, rows, numeric=()):
+    def cls(i):
+        return ' class="n"' if i in numeric else ""
+
+    th = "".join(f"<th{cls(i)}>{h}</th>" for i, h in enumerate(head))
+    body = "".join("<tr>" + "".join(f"<td{cls(i)}>{c}</td>" for i, c in enumerate(r)) + "</tr>" for r in rows)
+    return f"<table><thead><tr>{th}</tr></thead><tbody>{body}</tbody></table>"
+
+
+def _alignment_html(al):
     frames = al.get("frames") or []
     shifts = [np.hypot(r["row_shift_px"], r["col_shift_px"]) for r in frames]
     rows = [[_e(r["frame"]), _f(r["row_shift_px"], 2), _f(r["col_shift_px"], 2),
@@ -102,8 +136,6 @@ def _alignment_html(al):
 
 def comparison_section(st, picture, findings, fig_no):
     """HTML of the alignment and comparison part of a stack's section."""
-    from .html import _e, _f, _img, _kv
-
     out = []
     if st.get("alignment"):
         out.append(_alignment_html(st["alignment"]))

@@ -92,7 +92,7 @@ def _e(x):
 
 
 def _f(x, nd=2, unit=""):
-    v = tables._num(x)
+    v = tables.num(x)
     if v is None:
         return "–"
     s = f"{v:.{nd}f}"
@@ -292,8 +292,6 @@ def _region_tables(st):
            _table(head, rows, numeric=(1, 2, 3, 4, 5, 6, 7), nowrap=(8, 9)),
            '<p class="note">Statistics over all valid pixel values of all frames; locations as row, '
            'column and frame (r, c, f), counted from 0 at the top left.'
-           + (f' Percentiles P05 and P95 from every {int(st["percentiles_from_every_nth_chunk"])}th chunk of '
-              'frames (long stack).' if (st.get("percentiles_from_every_nth_chunk") or 1) > 1 else '')
            + (' U is the expanded uncertainty with coverage factor k = 2.' if has_u else '') + '</p>']
     env = [r for r in regions if r.get("temperature_factor") is not None or r.get("mould_risk") is not None]
     if env:
@@ -375,10 +373,7 @@ def _stack_section(k, st, picture, findings, fig_no):
         hist = figures.histogram(picture)
         fig_no += 1
         plots.append(f"<figure>{_img(hist, f'Histogram of {name}', 407)}<figcaption>Figure {fig_no}. "
-                     + (f"Distribution of the valid values of {_e(name)}, from every "
-                        f"{int(picture.get('hist_sampled_every_chunks', 1))}th chunk of frames"
-                        if picture.get("hist_sampled_every_chunks", 1) > 1 else
-                        f"Distribution of all valid values of {_e(name)}")
+                     + f"Distribution of all valid values of {_e(name)}"
                      + " (logarithmic count axis).</figcaption></figure>")
         tr = figures.trend(st.get("regions") or [], st.get("reflected_temperature_series_c"))
         if tr is not None:

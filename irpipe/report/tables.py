@@ -32,7 +32,7 @@ def done_stacks(report):
     return [s for s in report.get("stacks", []) if s.get("status", "done") == "done"]
 
 
-def _num(x):
+def num(x):
     """A finite float, or None (None, NaN, inf and non-numbers all become None)."""
     if x is None or isinstance(x, bool):
         return None
@@ -47,7 +47,7 @@ def envelope_failures(region):
     """Which envelope criteria a region fails, as short texts (empty when it passes or was
     not assessed)."""
     out = []
-    f, fc = _num(region.get("temperature_factor")), _num(region.get("critical_temperature_factor"))
+    f, fc = num(region.get("temperature_factor")), num(region.get("critical_temperature_factor"))
     if f is not None and fc is not None and f < fc:
         out.append("temperature factor below critical")
     if region.get("mould_risk") is True:
@@ -79,21 +79,21 @@ def build_findings(report):
             at = c.get("at") or {}
             reg = regions.get(c.get("region"), {})
             ref = c.get("reference")
-            d_ref, d_amb = _num(c.get("rise_over_reference_k")), _num(c.get("rise_over_ambient_k"))
+            d_ref, d_amb = num(c.get("rise_over_reference_k")), num(c.get("rise_over_ambient_k"))
             bits = []
             if d_ref is not None:
                 bits.append(f"{d_ref:.1f} K over {ref}")
             if d_amb is not None:
-                bits.append(f"{d_amb:.1f} K over ambient air ({_num(c.get('ambient_c')) or 0:g} °C)")
-            scaled = _num(c.get("rise_over_ambient_at_rated_load_k"))
+                bits.append(f"{d_amb:.1f} K over ambient air ({num(c.get('ambient_c')) or 0:g} °C)")
+            scaled = num(c.get("rise_over_ambient_at_rated_load_k"))
             if scaled is not None:
                 bits.append(f"{scaled:.1f} K over ambient scaled to rated load")
             detail = "; ".join(bits)
             if c.get("action"):
                 detail += ". " + c["action"] if detail else c["action"]
             items.append(dict(stack=name, kind="electrical", region=c.get("region"), frame=at.get("frame"),
-                              row=at.get("row"), col=at.get("col"), peak_c=_num(c.get("max_c")),
-                              mean_c=_num(reg.get("mean_c")), area_px=reg.get("pixels"),
+                              row=at.get("row"), col=at.get("col"), peak_c=num(c.get("max_c")),
+                              mean_c=num(reg.get("mean_c")), area_px=reg.get("pixels"),
                               delta_k=d_ref if d_ref is not None else d_amb,
                               reference=ref if d_ref is not None else "ambient air",
                               severity=c.get("severity"), priority=c.get("priority"), detail=detail))
@@ -103,33 +103,33 @@ def build_findings(report):
                 continue
             at = r.get("min_at") or {}
             bits = []
-            f, fc = _num(r.get("temperature_factor")), _num(r.get("critical_temperature_factor"))
+            f, fc = num(r.get("temperature_factor")), num(r.get("critical_temperature_factor"))
             if f is not None:
                 bits.append(f"temperature factor {f:.2f}" + (f" (critical {fc:.2f})" if fc is not None else ""))
-            rh = _num(r.get("surface_relative_humidity_pct"))
+            rh = num(r.get("surface_relative_humidity_pct"))
             if rh is not None:
                 bits.append(f"surface relative humidity {rh:.0f} %")
-            tmin = _num(r.get("minimum_surface_c"))
+            tmin = num(r.get("minimum_surface_c"))
             if tmin is not None:
                 bits.append(f"lowest surface temperature {tmin:.1f} °C (3x3 mean)")
             items.append(dict(stack=name, kind="envelope", region=r["name"], frame=at.get("frame"),
                               row=at.get("row"), col=at.get("col"),
-                              peak_c=tmin if tmin is not None else _num(r.get("min_c")),
-                              mean_c=_num(r.get("mean_c")), area_px=r.get("pixels"), delta_k=None,
+                              peak_c=tmin if tmin is not None else num(r.get("min_c")),
+                              mean_c=num(r.get("mean_c")), area_px=r.get("pixels"), delta_k=None,
                               reference=None, severity="; ".join(fails), priority=None,
                               detail="; ".join(bits)))
         for s in st.get("findings", []) or []:
-            d = _num(s.get("delta_k"))
+            d = num(s.get("delta_k"))
             ref = s.get("reference")
             kind = s.get("kind", "hot")
             detail = ""
             if d is not None:
                 detail = f"{abs(d):.1f} K {'above' if d >= 0 else 'below'} {ref or 'the reference'}"
-            thr = _num(s.get("threshold_c"))
+            thr = num(s.get("threshold_c"))
             if thr is not None:
                 detail += ("; " if detail else "") + f"threshold {thr:.2f} °C"
             items.append(dict(stack=name, kind=kind, region=None, frame=s.get("frame"), row=s.get("row"),
-                              col=s.get("col"), peak_c=_num(s.get("peak_c")), mean_c=_num(s.get("mean_c")),
+                              col=s.get("col"), peak_c=num(s.get("peak_c")), mean_c=num(s.get("mean_c")),
                               area_px=s.get("area_px"), delta_k=d, reference=ref, severity=None,
                               priority=None, detail=detail))
     for n, it in enumerate(items, 1):
@@ -144,16 +144,16 @@ def uncertainty_of(region, stat="mean_c"):
     mapping from statistic name (``mean_c``, ``min_c``, ...) to U."""
     u = region.get("expanded_uncertainty_k")
     if isinstance(u, dict):
-        return _num(u.get(stat))
-    return _num(u)
+        return num(u.get(stat))
+    return num(u)
 
 
 def _u_scalar(region):
     u = region.get("expanded_uncertainty_k")
     if isinstance(u, dict):
-        vals = [v for v in (_num(x) for x in u.values()) if v is not None]
+        vals = [v for v in (num(x) for x in u.values()) if v is not None]
         return max(vals) if vals else None
-    return _num(u)
+    return num(u)
 
 
 def region_rows(report):
@@ -167,19 +167,19 @@ def region_rows(report):
             rows.append({
                 "stack": st["name"], "region": r["name"], "pixels": r.get("pixels"),
                 "valid_values": r.get("valid_values"),
-                **{k: _num(r.get(k)) for k in ("min_c", "max_c", "mean_c", "std_c", "p05_c", "p95_c")},
+                **{k: num(r.get(k)) for k in ("min_c", "max_c", "mean_c", "std_c", "p05_c", "p95_c")},
                 "min_frame": mn.get("frame"), "min_row": mn.get("row"), "min_col": mn.get("col"),
                 "max_frame": mx.get("frame"), "max_row": mx.get("row"), "max_col": mx.get("col"),
-                "minimum_surface_c": _num(r.get("minimum_surface_c")),
-                "temperature_factor": _num(r.get("temperature_factor")),
-                "critical_temperature_factor": _num(r.get("critical_temperature_factor")),
-                "surface_relative_humidity_pct": _num(r.get("surface_relative_humidity_pct")),
+                "minimum_surface_c": num(r.get("minimum_surface_c")),
+                "temperature_factor": num(r.get("temperature_factor")),
+                "critical_temperature_factor": num(r.get("critical_temperature_factor")),
+                "surface_relative_humidity_pct": num(r.get("surface_relative_humidity_pct")),
                 "mould_risk": r.get("mould_risk"), "condensation_risk": r.get("condensation_risk"),
                 "expanded_uncertainty_k": _u_scalar(r),
                 "electrical_severity": el.get("severity"), "electrical_priority": el.get("priority"),
-                "rise_over_reference_k": _num(el.get("rise_over_reference_k")),
-                "rise_over_ambient_k": _num(el.get("rise_over_ambient_k")),
-                "rise_over_ambient_at_rated_load_k": _num(el.get("rise_over_ambient_at_rated_load_k")),
+                "rise_over_reference_k": num(el.get("rise_over_reference_k")),
+                "rise_over_ambient_k": num(el.get("rise_over_ambient_k")),
+                "rise_over_ambient_at_rated_load_k": num(el.get("rise_over_ambient_at_rated_load_k")),
             })
     return rows
 

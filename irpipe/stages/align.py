@@ -6,7 +6,7 @@ data; here each frame is linearised exactly as the radiometric stage would (NUC 
 calibration or apparent-temperature input, the same reason codes: the radiometric stage's
 own ``signal`` function), registered against the reference frame (``irpipe.alignment``),
 and resampled once onto the reference grid, with its validity alongside. The radiometric
-stage then takes the resampled signal (``chunk.extras["aligned_signal"]``) and applies
+stage then takes the resampled signal (``chunk.aligned_signal``, ``chunk.aligned_reason``) and applies
 emissivity, reflected temperature and path in the reference frame's geometry, where the
 emissivity and label maps, regions and reflector are drawn; the uncertainty stage follows.
 
@@ -27,32 +27,31 @@ from scipy import ndimage
 
 from .. import alignment as al
 from ..config import align_spec
+from ..constants import ZERO_CELSIUS
 from ..correction import VALID
-from . import Stage
-
-ORDER = 1
+from ..kernel import build_tables, linearise
+from .base import Stage
 
 
 class Linearizer:
-    """raw -> (signal, reason) with the radiometric stage's numbers: its own ``signal``
-    method on this stack's calibration, NUC and saturation (picklable, for cluster runs)."""
+    """raw -> (signal, reason) with the radiometric correction's own numbers
+    (``kernel.linearise`` on this stack's calibration, NUC and saturation); picklable."""
 
     def __init__(self, ctx):
-        cam = ctx.shared["camera_cfg"]
-        sat = cam.get("saturation")
-        if sat is None and np.issubdtype(ctx.dtype, np.integer):
-            sat = np.iinfo(ctx.dtype).max
-        self.input, self.cal, self.model = cam["input"], ctx.shared["calibration"], ctx.model
-        self.nuc, self.saturation = ctx.shared.get("nuc"), sat
+        self.tables = build_tables(input=ctx.camera_cfg["input"], calibration=ctx.calibration, model=ctx.model,
+                                   air_temperature_k=ctx.conditions["air_temperature_c"] + ZERO_CELSIUS,
+                                   reflected_temperature_k=ctx.reflected_temperature_k, dtype=ctx.dtype,
+                                   emissivity_field=ctx.emissivity, shape=ctx.shape[1:],
+                                   saturation=ctx.camera_cfg.get("saturation"), nuc=ctx.nuc, per_pixel=True)
 
     def __call__(self, raw):
-        from .radiometric import RadiometricStage
-
-        return RadiometricStage.signal(self, raw)
+        return linearise(raw, self.tables)
 
 
 class AlignStage(Stage):
     name = "align"
+    requires = ("chunk.raw", "ctx.model", "ctx.emissivity", "ctx.nuc", "ctx.bad_pixel_mask")
+    provides = ("chunk.aligned_signal", "chunk.aligned_reason", "ctx.alignment")
 
     @classmethod
     def applies(cls, ctx):
@@ -68,12 +67,12 @@ class AlignStage(Stage):
         n = ctx.shape[0]
         ref = int(spec["reference_frame"])
         if ref >= n:
-            ctx.cfg.fail(["stacks", ctx.index, "align", "reference_frame"],
-                         f"frame {ref} does not exist: the stack has {n} frame(s) (0 to {n - 1})")
+            raise InputDataError(f"{ctx.stack['path']}: stack '{ctx.name}' has {n} frame(s) (0 to {n - 1}); "
+                                 f"align.reference_frame {ref} does not exist: choose one of them")
         self.lin = Linearizer(ctx)
-        mask = ctx.shared.get("bad_pixel_mask")
+        mask = ctx.bad_pixel_mask
         filler = BadPixelFiller(mask) if mask is not None else None
-        size = int(ctx.options.get("frame_chunk") or 32)
+        size = ctx.frame_chunk
 
         def frames():
             with StackReader(ctx.stack["path"], f"stack '{ctx.name}'") as r:
@@ -130,21 +129,31 @@ class AlignStage(Stage):
             "resampling": "bilinear, once per frame, in the signal domain, with the validity mask",
             "frames": rows, "rejected_frames": rejected}
         # the radiometric stage takes the resampled signal and runs its per-pixel plan
-        ctx.shared["aligned_signal"] = True
+        ctx.alignment = list(self.transforms)
         self.counts = {v: 0 for v in al.ALIGN_REASONS.values()}
 
     def process(self, chunk, ctx):
-        s, reason = self.lin(chunk.raw)
+        chunk.aligned_signal, chunk.aligned_reason = self.resample_chunk(chunk.raw, chunk.first)
+        for c, label in al.ALIGN_REASONS.items():
+            self.counts[label] += int(np.count_nonzero(chunk.aligned_reason == c))
+
+    def resample_chunk(self, raw, frames):
+        """Linearise and resample frames ``frames`` (first frame number, or one number per
+        frame) of a chunk of raw values; returns (signal, reason codes). Pure given the
+        registration done in ``start`` (the cluster runner calls it on its workers)."""
+        s, reason = self.lin(raw)
+        if np.ndim(frames) == 0:
+            frames = np.arange(int(frames), int(frames) + s.shape[0])
         out = np.empty(s.shape, np.float64)
         code = np.empty(reason.shape, np.uint8)
         for k in range(s.shape[0]):
-            t = self.transforms[chunk.first + k]
+            t = self.transforms[int(frames[k])]
             if t is None:
                 out[k] = np.nan
                 code[k] = al.FRAME_REJECTED
                 continue
             ok = reason[k] == VALID
-            out[k], covered = al.resample(s[k], t, valid=ok, order=ORDER)
+            out[k], covered = al.resample(s[k], t, valid=ok)
             if t.is_identity:
                 code[k] = reason[k]
                 continue
@@ -152,14 +161,9 @@ class AlignStage(Stage):
             near = ndimage.affine_transform(reason[k], m, offset=(t.row_shift_px, t.col_shift_px), order=0,
                                             mode="constant", cval=al.NOT_COVERED)
             code[k] = np.where(covered, VALID, np.where(near != VALID, near, al.NOT_COVERED))
-        here = {label: int(np.count_nonzero(code == c)) for c, label in al.ALIGN_REASONS.items()}
-        for label, n in here.items():
-            self.counts[label] += n
-        chunk.extras["aligned_signal"] = (out, code)
-        chunk.extras["align_invalid"] = here        # read by the cluster runner's kernel
+        return out, code
 
     def finish(self, ctx):
-        # the radiometric stage reports ctx.invalid in its own finish (after this one); in a
-        # cluster run the client has added the workers' counts already
+        # the radiometric stage reports ctx.invalid in its own finish (after this one)
         for label, n in self.counts.items():
             ctx.invalid[label] = ctx.invalid.get(label, 0) + n

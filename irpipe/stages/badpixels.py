@@ -3,18 +3,19 @@ raw data, before linearisation (so the pixel keeps its own emissivity and path).
 from __future__ import annotations
 
 from ..calibration import BadPixelFiller
-from . import Stage
+from .base import Stage
 
 
 class BadPixelStage(Stage):
     name = "bad_pixels"
+    requires = ("chunk.raw", "ctx.bad_pixel_mask")
 
     @classmethod
     def applies(cls, ctx):
-        return ctx.shared.get("bad_pixel_mask") is not None
+        return ctx.bad_pixel_mask is not None
 
     def start(self, ctx):
-        self.filler = BadPixelFiller(ctx.shared["bad_pixel_mask"])
+        self.filler = BadPixelFiller(ctx.bad_pixel_mask)
         ctx.report["bad_pixels_filled"] = self.filler.count
 
     def process(self, chunk, ctx):

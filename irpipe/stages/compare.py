@@ -27,13 +27,15 @@ from .. import compare as cmp
 from ..constants import ZERO_CELSIUS
 from ..errors import InputDataError
 from ..io import StackReader, write_tiff_atomic
-from . import Stage
+from .base import Stage
 
 MANIFEST = "manifest.json"
 
 
 class CompareStage(Stage):
     name = "compare"
+    requires = ("ctx.temporal", "ctx.model")
+    provides = ("ctx.comparison_picture",)
 
     @classmethod
     def applies(cls, ctx):
@@ -59,7 +61,7 @@ class CompareStage(Stage):
 
     def finish(self, ctx):
         spec = self.spec
-        mine = ctx.shared["temporal"]
+        mine = ctx.temporal
         base = self._baseline(ctx)
         mean = np.asarray(mine["mean_c"], np.float64)
         st = ctx.model.signal_table
@@ -86,7 +88,8 @@ class CompareStage(Stage):
         try:
             diff, offset = cmp.remove_offset(raw_diff, mode, ctx.masks.get(offset_mode))
         except ValueError as exc:
-            ctx.cfg.fail(["stacks", ctx.index, "compare", "offset"], f"region '{offset_mode}': {exc}")
+            raise InputDataError(f"{ctx.stack['path']}: stack '{ctx.name}', compare.offset region "
+                                 f"'{offset_mode}': {exc}; choose a region inside the overlap or median") from None
         na = mine["noise"].get("mean_noise_k") or 0.0
         nb = (base.get("noise") or {}).get("mean_noise_k") or 0.0
         u, edge = cmp.difference_uncertainty(mean, aligned, na, nb)
@@ -143,10 +146,8 @@ class CompareStage(Stage):
             "findings": len(found), "suppressed": suppressed,
             "pressure_difference_pa": spec.get("pressure_difference_pa"),
             "temperature_factor": tf, "files": files}
-        pic = ctx.shared.get("picture")
-        if pic is not None:
-            pic["compare"] = {"difference_k": diff.astype(np.float32),
-                              "checkerboard_c": cmp.checkerboard(mean, aligned).astype(np.float32)}
+        ctx.comparison_picture = {"difference_k": diff.astype(np.float32),
+                                  "checkerboard_c": cmp.checkerboard(mean, aligned).astype(np.float32)}
 
 
 def _r(x):
@@ -193,11 +194,9 @@ def _manifest_entry(out_dir, name, label):
 
 def _check_current(cfg, i, entry, out_dir, label):
     """The manifest entry must match the stack's current inputs and config (fingerprint)."""
-    from ..io import sha256
-    from ..pipeline import _inputs_of, _stack_fingerprint
+    from ..manifest import hash_files, stack_fingerprint, stack_inputs
 
-    hashes = {str(p): sha256(p) for p in _inputs_of(cfg, i)}
-    if entry.get("fingerprint") != _stack_fingerprint(cfg, i, hashes):
+    if entry.get("fingerprint") != stack_fingerprint(cfg, i, hash_files(stack_inputs(cfg, i))):
         raise InputDataError(f"{Path(out_dir) / MANIFEST}: {label}: the written outputs of stack "
                              f"'{entry['name']}' are out of date (its inputs or config changed since); "
                              "run that survey again")
@@ -235,8 +234,8 @@ def _other_survey_mean(survey_path, name, ctx):
     other = load_config(survey_path)
     names = [s["name"] for s in other.data["stacks"]]
     if name not in names:
-        ctx.cfg.fail(["stacks", ctx.index, "compare", "baseline", "stack"],
-                     f"survey {Path(survey_path).name} has no stack '{name}'; its stacks: {', '.join(names)}")
+        raise InputDataError(f"{survey_path}: survey has no stack '{name}' (compare.baseline of stack "
+                             f"'{ctx.name}'); its stacks: {', '.join(names)}")
     i = names.index(name)
     out_dir = other.base_dir / other.data["output"]["dir"]
     label = f"baseline of stack '{ctx.name}' from survey {Path(survey_path).name}"

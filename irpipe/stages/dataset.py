@@ -36,7 +36,7 @@ import numpy as np
 
 from .. import __version__
 from ..errors import OutputError
-from . import Stage
+from .base import Stage
 
 CF_CONVENTIONS = "CF-1.8"
 TEMPERATURE_ATTRS = {"units": "degC", "long_name": "surface temperature",
@@ -177,6 +177,8 @@ class DatasetWriterStage(Stage):
         formats = ctx.options.get("formats") or []
         return "netcdf" in formats or "zarr" in formats
 
+    requires = ("chunk.temperature_c",)
+
     def start(self, ctx):
         formats = ctx.options.get("formats") or []
         attrs = dataset_attributes(ctx)
@@ -191,7 +193,7 @@ class DatasetWriterStage(Stage):
                 dest = Path(ctx.out_dir) / f"{ctx.name}.temperature.zarr"
                 tmp = self._tmp(dest, directory=True)
                 self.items.append(("temperature_zarr", dest, tmp, None))
-                chunk = int(ctx.options.get("frame_chunk") or 32)
+                chunk = ctx.frame_chunk
                 self.items[-1] = ("temperature_zarr", dest, tmp, _ZarrWriter(tmp, ctx.shape, attrs, chunk))
         except ImportError as exc:
             self.abort(ctx)

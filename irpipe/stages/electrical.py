@@ -9,7 +9,7 @@ from __future__ import annotations
 from functools import lru_cache
 
 from .. import findings
-from . import Stage
+from .base import Stage
 
 
 @lru_cache(maxsize=1)
@@ -23,6 +23,7 @@ def severity_table():
 
 class ElectricalStage(Stage):
     name = "electrical"
+    requires = ("report.regions",)
 
     @classmethod
     def applies(cls, ctx):
@@ -38,9 +39,7 @@ class ElectricalStage(Stage):
             cfg = ctx.region_cfg[name]
             if cfg.get("role") != "component" or r["max_c"] is None:
                 continue
-            ref = cfg.get("reference")
-            if ref and ref not in regions:
-                ctx.cfg.fail(["stacks", ctx.index, "regions"], f"region '{name}': reference '{ref}' is not a region of this stack")
+            ref = cfg.get("reference")        # a region of this stack (config check)
             rise_ref = r["max_c"] - regions[ref]["max_c"] if ref and regions[ref]["max_c"] is not None else None
             rise_amb = r["max_c"] - ambient
             warn = []

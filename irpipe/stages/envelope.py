@@ -13,16 +13,15 @@ from __future__ import annotations
 import numpy as np
 
 from .. import findings
+from ..defaults import BUILDING_USE, CRITICAL_TEMPERATURE_FACTORS
 from ..regions import local_linear_smooth
-from . import Stage
+from .base import Stage
 
-USE_KEYS = {"dwelling": "dwelling", "residential": "dwelling", "school": "school", "office": "office",
-            "retail": "retail", "storage": "storage", "sports-hall": "sports_hall", "kitchen": "kitchen",
-            "swimming-pool": "swimming_pool", "laundry": "laundry"}
 
 
 class EnvelopeStage(Stage):
     name = "envelope"
+    requires = ("ctx.picture",)
 
     @classmethod
     def applies(cls, ctx):
@@ -38,8 +37,8 @@ class EnvelopeStage(Stage):
         rh = s.get("indoor_relative_humidity_pct")
         crit_default = s.get("critical_temperature_factor")
         if crit_default is None:
-            crit_default = findings.CRITICAL_TEMPERATURE_FACTORS[USE_KEYS[s.get("building_use", "dwelling")]]
-        mean = ctx.shared["picture"]["mean_c"].astype(np.float64)
+            crit_default = CRITICAL_TEMPERATURE_FACTORS[s.get("building_use", BUILDING_USE)]
+        mean = ctx.picture.mean_c.astype(np.float64)
         for r in ctx.report.get("regions", []):
             m = ctx.masks[r["name"]]
             cfg = ctx.region_cfg[r["name"]]

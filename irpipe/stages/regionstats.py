@@ -1,19 +1,20 @@
 """Region statistics stage: streaming min/max/mean/std/percentiles per region, over the
-whole stack and per frame (``irpipe.regions.RegionAccumulator``)."""
+whole stack and per frame (``irpipe.regions.RegionAccumulator``). Percentiles come from
+every frame at any stack length, within half a histogram bin of the exact value
+(``irpipe.defaults.STATISTICS_BIN_K``)."""
 from __future__ import annotations
 
 from ..regions import RegionAccumulator
-from . import Stage
+from .base import Stage
 
 
 class RegionStatsStage(Stage):
     name = "region_stats"
+    requires = ("chunk.temperature_c",)
+    provides = ("report.regions",)
 
     def start(self, ctx):
-        # exact percentiles up to 128 frames; beyond, from every 4th chunk of frames
-        self.hist_every = 4 if ctx.shape[0] > 128 else 1
-        ctx.report["percentiles_from_every_nth_chunk"] = self.hist_every
-        self.acc = [RegionAccumulator(n, m, self.hist_every) for n, m in ctx.masks.items()]
+        self.acc = [RegionAccumulator(n, m) for n, m in ctx.masks.items()]
 
     def process(self, chunk, ctx):
         for a in self.acc:
@@ -21,8 +22,7 @@ class RegionStatsStage(Stage):
 
     def finish(self, ctx):
         regions = [a.result() for a in self.acc]
-        # per-region figures of stages that run before this one (uncertainty stage)
-        extra = ctx.shared.get("region_uncertainty") or {}
+        # per-region figures of the uncertainty stage, which runs before this one
         for r in regions:
-            r.update(extra.get(r["name"], {}))
+            r.update(ctx.region_uncertainty.get(r["name"], {}))
         ctx.report["regions"] = regions

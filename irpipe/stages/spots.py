@@ -6,11 +6,12 @@ from __future__ import annotations
 import numpy as np
 
 from .. import findings
-from . import Stage
+from .base import Stage
 
 
 class SpotStage(Stage):
     name = "spots"
+    requires = ("chunk.temperature_c", "report.regions")
 
     @classmethod
     def applies(cls, ctx):
@@ -59,13 +60,14 @@ class SpotStage(Stage):
             if f"{'above' if kind == 'hot' else 'below'}_c" in spec:
                 thresholds.append(spec["above_c" if kind == "hot" else "below_c"])
             rel = spec.get("above_reference_k" if kind == "hot" else "below_reference_k")
-            if rel is not None:
-                if ref is None:
-                    ctx.cfg.fail(["stacks", ctx.index, key], "a relative threshold needs reference: <region> or median")
+            # the config check guarantees a threshold and, for a relative one, a reference;
+            # a reference with no valid value (region never valid) leaves only the absolute one
+            if rel is not None and ref is not None:
                 thresholds.append(ref + sign * rel)
             if not thresholds:
-                ctx.cfg.fail(["stacks", ctx.index, key],
-                             f"give {'above_c or above_reference_k' if kind == 'hot' else 'below_c or below_reference_k'}")
+                ctx.report.setdefault("warnings", []).append(
+                    f"{key}: reference '{spec.get('reference')}' has no valid value; no {kind} spot search")
+                continue
             # when both are given, a spot must pass both (the stricter one)
             thr = max(thresholds) if kind == "hot" else min(thresholds)
             spots = findings.find_spots(img, frm, thr, spec.get("min_area_px", 4), kind=kind, reference_c=ref)

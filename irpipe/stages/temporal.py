@@ -15,7 +15,7 @@ import numpy as np
 from .. import __version__
 from ..compare import TemporalAccumulator, temporal_noise
 from ..io import write_tiff_atomic
-from . import Stage
+from .base import Stage
 
 
 def is_baseline(ctx):
@@ -29,6 +29,8 @@ def is_baseline(ctx):
 
 class TemporalStage(Stage):
     name = "temporal"
+    requires = ("chunk.temperature_c",)
+    provides = ("ctx.temporal",)
 
     @classmethod
     def applies(cls, ctx):
@@ -71,8 +73,9 @@ class TemporalStage(Stage):
         entry = {"mean_c": mean, "noise": noise, "time": ctx.stack.get("time"), "name": ctx.name,
                  "indoor_air_c": ctx.cfg.data.get("survey", {}).get("indoor_air_c"),
                  "outdoor_air_c": ctx.cfg.data.get("survey", {}).get("outdoor_air_c")}
-        ctx.shared["temporal"] = entry
-        # later stacks of this run compare with it (irpipe.stages.compare)
+        ctx.temporal = entry
+        # later stacks of this run (serial: the pipeline runs a survey with comparisons
+        # within it one stack after another) compare with it (irpipe.stages.compare)
         ctx.options.setdefault("stack_means", {})[ctx.name] = entry
 
 

@@ -40,8 +40,9 @@ from .. import __version__
 from ..constants import ZERO_CELSIUS
 from ..emissivity import METAL_EMISSIVITY
 from ..io import StackWriter
+from ..kernel import linearise
 from ..uncertainty import COVERAGE_FACTOR, InputUncertainties, ModelCache, gum_uncertainty, path_variant
-from . import Stage
+from .base import Stage
 
 CONFIG_KEYS = {"emissivity": "emissivity", "reflected_temperature": "reflected_temperature_k",
                "air_temperature": "air_temperature_k", "relative_humidity": "relative_humidity_pct",
@@ -51,31 +52,10 @@ METHOD = ("GUM law of propagation of uncertainty (JCGM 100:2008), uncorrelated i
 
 
 def model_factory(ctx):
-    """A ``ModelCache`` of measurement models for perturbed path conditions of a stack.
-
-    The path is rebuilt exactly as the pipeline builds it (``pipeline.path_transmittance``);
-    a perturbation that leaves the transmittance unchanged (forced flat transmittance,
-    distance 0) returns the stack's own model.
-    """
-    from ..errors import ConfigError
-    from ..pipeline import path_transmittance
-
-    base = ctx.model
-    where = f"{ctx.cfg.path.name}, stacks[{ctx.index}] conditions (uncertainty: perturbed path)"
-
-    def make(air_temperature, relative_humidity, distance):
-        cond = dict(ctx.conditions, air_temperature_c=air_temperature - ZERO_CELSIUS,
-                    relative_humidity_pct=relative_humidity * 100.0, distance_m=distance)
-        tau, _ = path_transmittance(cond, ctx.camera.response, where)
-        t = np.asarray(tau, float)
-        if t.shape == base.tau.shape and np.array_equal(t, base.tau):
-            return base
-        try:
-            return path_variant(base, tau)
-        except ValueError as exc:
-            raise ConfigError(f"{where}: {exc}") from None
-
-    return ModelCache(make, known={nominal_path(ctx): base})
+    """A ``ModelCache`` of measurement models for perturbed path conditions of a stack,
+    built by the stack's path-model factory (``ctx.path_model``, the same path as the
+    stack's own model); the nominal conditions give the stack's own model."""
+    return ModelCache(ctx.path_model, known={nominal_path(ctx): ctx.model})
 
 
 def nominal_path(ctx):
@@ -87,6 +67,9 @@ def nominal_path(ctx):
 
 class UncertaintyStage(Stage):
     name = "uncertainty"
+    requires = ("chunk.temperature_c", "chunk.signal", "chunk.lookup_index", "chunk.reflected_temperature_k",
+                "ctx.tables", "ctx.path_model")
+    provides = ("ctx.region_uncertainty",)
 
     @classmethod
     def applies(cls, ctx):
@@ -95,8 +78,7 @@ class UncertaintyStage(Stage):
 
     def start(self, ctx):
         self.sec = dict(ctx.cfg.data.get("uncertainty") or {})
-        rad = ctx.shared["radiometric"]
-        self.rad = rad
+        self.rad = ctx.tables
         self.shape2 = ctx.shape[1:]
         self.path = nominal_path(ctx)
         self.models = model_factory(ctx)
@@ -108,12 +90,12 @@ class UncertaintyStage(Stage):
             self.u_eps_source = "material library (per material)"
             u_eps_map = eps_field.uncertainty_array(self.shape2)
         self.u_base = InputUncertainties.from_config(self.sec, emissivity=0.0)
-        self.lookup = rad["plan"] == "lookup"
+        self.lookup = self.rad.lookup
         self.inputs = tuple(n for n in InputUncertainties.from_config(self.sec, emissivity=u_eps_map).active())
         if self.lookup:
             self._build_tables(ctx, eps_field, u_eps_map)
         else:
-            self.eps = np.asarray(rad["emissivity"], np.float64)
+            self.eps = np.asarray(self.rad.emissivity, np.float64)
             self.u_eps = u_eps_map
         # per-region accumulators (flat pixel indices)
         self.regions = {n: np.flatnonzero(m) for n, m in ctx.masks.items()}
@@ -133,10 +115,10 @@ class UncertaintyStage(Stage):
     # -- lookup plan: U(raw value, label) ------------------------------------------------
     def _build_tables(self, ctx, eps_field, u_eps_map):
         rad = self.rad
-        lut = rad["lut_c"]
+        lut = rad.lut_c
         n_lab, nv = lut.shape
-        values = np.arange(rad["base"], rad["base"] + nv, dtype=np.int64)
-        s_all, _ = rad["signal"](values)
+        values = np.arange(rad.base, rad.base + nv, dtype=np.int64)
+        s_all, _ = linearise(values, rad)
         if eps_field.value is not None:
             u_lab = [float(u_eps_map.flat[0])]
         else:
@@ -145,8 +127,8 @@ class UncertaintyStage(Stage):
             u_lab[first[0]] = u_eps_map.ravel()[first[1]]
         self.table = np.full((n_lab, nv), np.nan, np.float32)
         self.contrib = {k: np.full((n_lab, nv), np.nan, np.float32) for k in self.inputs}
-        refl = rad["reflected_temperature_k"]
-        for k, e in enumerate(rad["emissivity_values"]):
+        refl = rad.reflected_temperature_k
+        for k, e in enumerate(rad.emissivity_values):
             ok = np.isfinite(lut[k])
             if not ok.any():
                 continue
@@ -166,18 +148,18 @@ class UncertaintyStage(Stage):
         n = chunk.n
         valid = np.isfinite(chunk.temperature_c)
         if self.lookup:
-            idx = chunk.extras["lookup_index"]
+            idx = chunk.lookup_index
             big_u = self.table_flat.take(idx)
             big_u[~valid] = np.nan
             flat_idx = idx.reshape(n, -1)
             parts = {k: (lambda ii, k=k: self.contrib_flat[k].take(flat_idx[:, ii])) for k in self.inputs}
         else:
-            s = chunk.extras["signal"]
-            refl = chunk.extras.get("reflected_temperature_k")
+            s = chunk.signal
+            refl = chunk.reflected_temperature_k
             big_u = np.empty(chunk.temperature_c.shape, np.float32)
             full = {k: np.empty((n,) + self.shape2, np.float32) for k in self.inputs}
             for f in range(n):
-                tr = self.rad["reflected_temperature_k"] if refl is None else float(refl[f])
+                tr = self.rad.reflected_temperature_k if refl is None else float(refl[f])
                 u = InputUncertainties(**{**self.u_base.__dict__, "emissivity": self.u_eps})
                 uc, contrib = gum_uncertainty(s[f], self.eps, tr, *self.path, u, self.models, budget=True)
                 big_u[f] = COVERAGE_FACTOR * uc
@@ -222,7 +204,7 @@ class UncertaintyStage(Stage):
                 "emissivity_mean": round(e, 4),
                 "uncertainty_flag": _flag(mean_u, e, limit),
             }
-        ctx.shared["region_uncertainty"] = out
+        ctx.region_uncertainty = out
         ctx.report["uncertainty"] = {
             "method": METHOD, "coverage_factor": COVERAGE_FACTOR,
             "standard_uncertainties": self.sec, "emissivity_uncertainty": self.u_eps_source,

@@ -6,11 +6,12 @@ import json
 
 from .. import __version__
 from ..io import StackWriter
-from . import Stage
+from .base import Stage
 
 
 class TemperatureWriterStage(Stage):
     name = "write_temperature"
+    requires = ("chunk.temperature_c",)
 
     def start(self, ctx):
         self.file = f"{ctx.name}.temperature.tif"
