@@ -1,4 +1,4 @@
-"""Command line: ``irpipe run | validate | demo | schema | emissivity | calibrate``.
+"""Command line: ``irpipe run | validate | demo | schema | inspect | emissivity | calibrate``.
 
 Errors print one line (what, where, the fix) and exit with 2 (config), 3 (input data) or
 1 (anything else); ``--debug`` shows the traceback. Heavy modules load only when a
@@ -41,6 +41,12 @@ def _parser():
     d.add_argument("--quiet", action="store_true")
 
     sub.add_parser("schema", parents=[common], help="print the JSON Schema of the survey config")
+
+    ins = sub.add_parser("inspect", parents=[common], help="write one self-contained HTML page to read temperatures, "
+                         "draw regions and assign emissivity by region")
+    ins.add_argument("config")
+    ins.add_argument("--out", help="page to write (default: <config>.inspect.html beside the config)")
+    ins.add_argument("--stack", action="append", metavar="NAME", help="only this stack (repeat for more)")
     from .cli_field import register as _register_field
     _register_field(sub, common)
     return p
@@ -106,6 +112,13 @@ def _dispatch(args):
         _, _, ctxs = plan(cfg, Path("."))
         print(f"{args.config}: OK ({len(ctxs)} stack(s): "
               + ", ".join(f"{c.name} {c.shape[0]}x{c.shape[1]}x{c.shape[2]}" for c in ctxs) + ")")
+        return 0
+    if args.command == "inspect":
+        from .inspect import write_page
+        dest, notes = write_page(args.config, args.out, args.stack)
+        for n in notes:
+            print(f"irpipe: {n}")
+        print(f"irpipe: page written to {dest} (open it in a browser; it needs no server or network)")
         return 0
     if args.command in ("run", "demo"):
         _tune_allocator()

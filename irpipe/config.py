@@ -360,7 +360,7 @@ class _LabelValues(Node):
                 "additionalProperties": _label_value.json()}
 
 
-EMISSIVITY_SPEC = OneOf(options=(
+_EMISSIVITY_ONE = OneOf(options=(
     (_is_num, EMISSIVITY, "number"),
     (lambda v: isinstance(v, str), String(help="material name"), "material"),
     (_has("map"), Mapping(keys={"map": FilePath(help="float TIFF map of emissivity, same (rows, cols) as the stack")},
@@ -371,6 +371,30 @@ EMISSIVITY_SPEC = OneOf(options=(
                              required=("labels", "values")), "labels"),
 ), expected="a number in (0, 1], a material name, {map: file.tif} or {labels: file.tif, values: {...}}",
     help="surface emissivity")
+
+
+class _RegionValues(Node):
+    """{region name: emissivity or material name}; names are checked against the stack's regions."""
+
+    def check(self, v, path, ctx):
+        if not isinstance(v, dict) or not v:
+            ctx.fail(path, "expected a mapping {region name: emissivity or material name}, e.g. "
+                           "{glazing: 0.84, brick-field: brick-common}")
+        return {String().check(k, list(path) + [k], ctx): _label_value.check(val, list(path) + [k], ctx)
+                for k, val in v.items()}
+
+    def json(self):
+        return {"type": "object", "description": self.help, "additionalProperties": _label_value.json()}
+
+
+EMISSIVITY_SPEC = OneOf(options=(
+    (_has("regions"), Mapping(keys={
+        "regions": _RegionValues(help="region name -> emissivity or material; a later region in the stack's "
+                                      "regions list wins where regions overlap"),
+        "default": _EMISSIVITY_ONE}, required=("regions", "default"),
+        help="emissivity by region over a default (any emissivity form)"), "by region"),
+) + _EMISSIVITY_ONE.options, expected="a number in (0, 1], a material name, {map: file.tif}, "
+    "{labels: file.tif, values: {...}} or {regions: {region: value}, default: ...}", help="surface emissivity")
 
 REFLECTED_SPEC = OneOf(options=(
     (_is_num, Celsius(lo=-120.0), "number"),
@@ -704,6 +728,14 @@ def _cross_checks(cfg: Config):
                      f"a reflector of emissivity {refl['reflector_emissivity']:g} is not a reflector; the reflector "
                      "method needs a diffuse reflector of emissivity near 0 (crumpled-and-flattened aluminium foil, "
                      f"about 0.03): give a value below {MAX_REFLECTOR_EMISSIVITY:g}")
+        em = cond.get("emissivity")
+        if isinstance(em, dict) and "regions" in em:
+            own = "emissivity" in st.get("conditions", {})
+            ekey = ["stacks", i, "conditions", "emissivity", "regions"] if own else ["conditions", "emissivity", "regions"]
+            for nm in em["regions"]:
+                if nm not in rnames:
+                    cfg.fail(ekey + [nm], f"'{nm}' is not a region of stack '{st['name']}'; regions: "
+                                          f"{', '.join(sorted(rnames)) or 'none'}; add the region or remove this entry")
         for key in ("emissivity", "reflected_temperature_c", "air_temperature_c"):
             if key not in cond:
                 cfg.fail(["stacks", i], f"no {key} for this stack: set it under conditions or the stack's conditions")

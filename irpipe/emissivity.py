@@ -277,3 +277,85 @@ def apply_view_angles(field, shape, stack_angle=None, regions=(), refractive_ind
              if a is not None]
     out.description = f"{field.description}; view-angle correction (n = {refractive_index:g}): " + ", ".join(parts)
     return out, warnings
+
+
+def emissivity_by_region(base, masks, assignments, library, typed_uncertainty=0.0):
+    """Emissivity assigned region by region over a default field.
+
+    Parameters
+    ----------
+    base : EmissivityField
+        The default emissivity of every pixel (a number, a map or a label image).
+    masks : mapping of str to ndarray of bool, shape (M, N)
+        The stack's region masks **in the order of its** ``regions`` **list**; a later
+        region wins where regions overlap.
+    assignments : mapping of str to (str or float)
+        Region name -> material name from ``library`` or an emissivity typed as a number.
+    library : mapping
+        Material library (``name -> {emissivity, uncertainty, source}``).
+    typed_uncertainty : float
+        Standard uncertainty of a typed number (the config's ``uncertainty.emissivity``,
+        0 when not given). A material keeps its library ``uncertainty``.
+
+    Returns
+    -------
+    EmissivityField
+        A map when ``base`` is a map; otherwise the label form (index image + values), one
+        label per distinct (emissivity, uncertainty) pair present, so the lookup plan of
+        the radiometric stage and the lookup tables of the uncertainty stage still apply.
+
+    Raises
+    ------
+    KeyError
+        A material name not in the library (message lists close names).
+
+    Notes
+    -----
+    eps(p) = value of the last region in list order whose mask holds p, else the default
+    eps_0(p). No physics beyond the assignment: the oblique-view correction
+    (``apply_view_angles``) applies afterwards to the result as to any field.
+    """
+    order = [n for n in masks if n in assignments]
+    layers = []
+    for name in order:
+        item = assignments[name]
+        if isinstance(item, str):
+            e = material_emissivity(item, library)
+            u = float(library[item].get("uncertainty", 0.0))
+            layers.append((name, e, u, f"{name}: {item} ({e:g})"))
+        else:
+            layers.append((name, float(item), float(typed_uncertainty), f"{name}: {float(item):g}"))
+    desc = f"by region ({', '.join(d for *_, d in layers)}), elsewhere {base.description}"
+    shape = next(iter(masks.values())).shape if masks else None
+    if base.map is not None:
+        m = base.map.astype(np.float64).copy()
+        u = base.uncertainty_array(m.shape).copy()
+        for name, e, ue, _ in layers:
+            m[masks[name]] = e
+            u[masks[name]] = ue
+        return EmissivityField(map=m, description=desc, uncertainty=u)
+    if base.value is not None:
+        index = np.zeros(shape, np.int64)
+        vals = [float(base.value)]
+        u_lab = [float(np.asarray(base.uncertainty if base.uncertainty is not None else 0.0, float).ravel()[0])]
+    else:
+        index = np.asarray(base.index, np.int64).copy()
+        shape = index.shape
+        vals = [float(v) for v in base.values]
+        u_pix = base.uncertainty_array(shape)
+        u_lab = [0.0] * len(vals)
+        present, first = np.unique(index.ravel(), return_index=True)
+        for lab, f in zip(present, first):
+            u_lab[int(lab)] = float(u_pix.ravel()[f])
+    for name, e, ue, _ in layers:
+        index[masks[name]] = len(vals)
+        vals.append(e)
+        u_lab.append(ue)
+    vals, u_lab = np.asarray(vals), np.asarray(u_lab)
+    used = np.unique(index)
+    pairs, merged = np.unique(np.stack([vals[used], u_lab[used]], 1), axis=0, return_inverse=True)
+    lut = np.zeros(vals.size, np.int64)
+    lut[used] = np.asarray(merged).ravel()
+    index = lut[index].astype(np.int32)
+    return EmissivityField(index=index, values=pairs[:, 0].copy(), description=desc,
+                           uncertainty=pairs[:, 1][index])

@@ -42,6 +42,8 @@ def stack_inputs(cfg: Config, i: int, cam=None) -> list:
     if isinstance(cam.get("calibration"), dict) and "file" in cam["calibration"]:
         files.append(cam["calibration"]["file"])
     e = merged_conditions(cfg.data, i)["emissivity"]
+    if isinstance(e, dict) and "regions" in e:
+        e = e["default"]
     if isinstance(e, dict):
         files.append(e.get("map") or e.get("labels"))
     files += [r["mask"] for r in st.get("regions", []) if "mask" in r]

@@ -213,7 +213,9 @@ def run(config_path, out_dir=None, *, resume=False, keep_going=False, quiet=True
     def settle(o: _Outcome):
         """Record a finished stack in config order; raise when the run must stop."""
         if o.ok:
+            from .fingerprint import pixel_fingerprint
             manifest["stacks"].append({"name": o.name, "status": "done", "fingerprint": o.fingerprint,
+                                       "pixel_fingerprint": pixel_fingerprint(cfg, o.index, o.hashes),
                                        "inputs": o.hashes, "outputs": o.outputs, "report": o.report})
             results.append(o.report)
             if o.picture is not None:

@@ -236,7 +236,8 @@ def _prepare_regions(ctx, cfg, key, st):
 def _prepare_conditions(ctx, cfg, key, cond, with_model=True):
     ekey = condition_key(cfg, ctx.index, "emissivity")
     with _where(cfg, ekey):
-        ctx.emissivity = resolve_emissivity(cfg, ekey[:-1], cond["emissivity"], ctx.shape[1:], ctx.materials)
+        ctx.emissivity = resolve_emissivity(cfg, ekey[:-1], cond["emissivity"], ctx.shape[1:], ctx.materials,
+                                            masks=ctx.masks)
     # oblique views: stack-wide angle, replaced by a region's own angle for its pixels;
     # metals (emissivity < 0.5) are left as they are (irpipe.emissivity.apply_view_angles)
     region_angles = [(n, ctx.masks[n], r["view_angle_deg"]) for n, r in ctx.region_cfg.items()
@@ -279,8 +280,16 @@ def _prepare_conditions(ctx, cfg, key, cond, with_model=True):
         ctx.report["conditions"]["region_view_angles_deg"] = {n: a for n, _, a in region_angles}
 
 
-def resolve_emissivity(cfg, keypath, spec, rows_cols, materials) -> EmissivityField:
+def resolve_emissivity(cfg, keypath, spec, rows_cols, materials, masks=None) -> EmissivityField:
     """Turn the config's emissivity spec into an EmissivityField (reads maps)."""
+    if isinstance(spec, dict) and "regions" in spec:       # emissivity by region over a default
+        from .emissivity import emissivity_by_region
+        base = resolve_emissivity(cfg, keypath, spec["default"], rows_cols, materials)
+        typed_u = float((cfg.data.get("uncertainty") or {}).get("emissivity", 0.0))
+        try:
+            return emissivity_by_region(base, masks or {}, spec["regions"], materials, typed_u)
+        except KeyError as exc:
+            cfg.fail(keypath + ["emissivity", "regions"], exc.args[0])
     def lib(name, kp):
         try:
             return material_emissivity(name, materials)

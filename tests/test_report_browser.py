@@ -1,9 +1,9 @@
 """The demo survey's report.html as a browser shows it: rendered by headless Chromium to a
 PNG screenshot, which must not be blank, and a checker that notices a missing picture.
 
-Chromium is found as /usr/bin/chromium or ``chromium`` on PATH (Debian package
-``chromium``). Without it the tests are skipped, except when the environment variable CI
-is set: there they fail, so that a CI image without the browser cannot pass silently.
+The browser comes from the selenium harness ``tests/browser.py`` (Debian ``chromium`` and
+``chromium-driver``). Without it the tests are skipped, except when the environment variable
+CI is set: there they fail, so that a CI image without the browser cannot pass silently.
 
 Thresholds on the screenshot are from looking at the rendered demo (1200 x 3000 window):
 the page is mostly white with dark text, and the temperature picture (colour map
@@ -14,43 +14,32 @@ from __future__ import annotations
 
 import base64
 import io
-import os
 import re
-import shutil
-import subprocess
 
 import numpy as np
 import pytest
 
 from test_report import PNG_SIGNATURE, demo_run
 
-FLAGS = ["--headless", "--no-sandbox", "--disable-gpu", "--no-first-run", "--disable-background-networking",
-         "--disable-component-update", "--disable-sync"]
-WINDOW = "--window-size=1200,3000"
+from browser import browser, chromium  # noqa: F401  (the one selenium harness; chromium() skips/fails)
 
-
-def chromium():
-    """Path of the Chromium executable; skips the test (fails it under CI) without one."""
-    for c in ("/usr/bin/chromium", shutil.which("chromium")):
-        if c and os.path.isfile(c) and os.access(c, os.X_OK):
-            return c
-    msg = "headless Chromium not found (/usr/bin/chromium or 'chromium' on PATH); install the chromium package"
-    if os.environ.get("CI"):
-        pytest.fail(msg + " -- required when CI is set")
-    pytest.skip(msg)
+WINDOW = (1200, 3000)
 
 
 def screenshot(exe, html_path, work):
-    """Render ``html_path`` with the fixed flags into a PNG; returns (H, W, 3) floats in [0, 1]."""
+    """Render ``html_path`` at 1200 x 3000 CSS pixels into a PNG; returns (H, W, 3) floats in [0, 1]."""
     import matplotlib.image as mpimg
 
     work.mkdir(parents=True, exist_ok=True)
-    profile = work / "profile"
-    profile.mkdir()                       # an empty profile directory per run
     png = work / "shot.png"
-    cmd = [exe, *FLAGS, f"--user-data-dir={profile}", f"--screenshot={png}", WINDOW, html_path.as_uri()]
-    res = subprocess.run(cmd, capture_output=True, text=True, timeout=180)
-    assert res.returncode == 0 and png.is_file(), f"chromium failed ({res.returncode}): {res.stderr[-2000:]}"
+    drv = browser(*WINDOW)
+    try:
+        drv.execute_cdp_cmd("Emulation.setDeviceMetricsOverride",
+                            {"width": WINDOW[0], "height": WINDOW[1], "deviceScaleFactor": 1, "mobile": False})
+        drv.get(html_path.as_uri())
+        drv.save_screenshot(str(png))
+    finally:
+        drv.quit()
     a = mpimg.imread(png)
     assert a.shape[:2] == (3000, 1200)
     return a[..., :3]
