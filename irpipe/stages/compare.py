@@ -57,6 +57,10 @@ class CompareStage(Stage):
         got = (ctx.options.get("stack_means") or {}).get(name)
         if got is not None:
             return {**got, "survey": None, "source": "this run"}
+        configured = ctx.cfg.base_dir / ctx.cfg.data["output"]["dir"]
+        if not (Path(ctx.out_dir) / MANIFEST).is_file() and (configured / MANIFEST).is_file():
+            # a stack run on its own into a scratch folder (irpipe inspect): the survey's outputs
+            return _written_mean(ctx.cfg, name, configured, ctx)
         return _written_mean(ctx.cfg, name, Path(ctx.out_dir), ctx)
 
     def finish(self, ctx):
