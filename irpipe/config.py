@@ -454,6 +454,10 @@ CAMERA = Mapping(keys={
     "range_c": Pair(item=Celsius(lo=TABLE_LIMITS_C[0], hi=TABLE_LIMITS_C[1]), default=None,
                     help="temperature range of the inverse tables [C]; default "
                          f"[{TABLE_RANGE_C[0]:g}, {TABLE_RANGE_C[1]:g}]"),
+    "ifov_mrad": Number(lo=0.0, lo_open=True, hi=100.0,
+                        help="heat flow: instantaneous field of view of one pixel [mrad] (pixel side = distance x IFOV)"),
+    "horizontal_fov_deg": Number(lo=0.0, lo_open=True, hi=180.0, hi_open=True,
+                                 help="heat flow: horizontal field of view [deg]; pixel side 2 d tan(HFOV/2) / width"),
 }, help="camera model")
 
 class _Ellipse(Node):
@@ -490,6 +494,13 @@ REGION = Mapping(keys={
     "reference": String(help="electrical: name of the similar component to compare with"),
     "critical_temperature_factor": Number(lo=0.0, hi=1.0),
     "view_angle_deg": Number(lo=0.0, hi=90.0, hi_open=True),
+    "thermal_bridge": Mapping(keys={
+        "length_m": Number(lo=0.0, lo_open=True, help="bridge length [m]; default: the region's longer "
+                           "bounding-box side on the wall"),
+        "kind": String(choices=("flat", "corner"), default="flat",
+                       help="flat: bridge in a flat wall (internal-dimension psi_i); corner: flagged, the flat-wall "
+                            "psi of a corner seen in one image is not the ISO 14683 value"),
+    }, fill_empty=False, help="heat flow: linear thermal transmittance psi of this region against heat_flow.reference"),
 }, required=("name",), help="a named region of the image")
 
 SPOTS = Mapping(keys={
@@ -547,6 +558,98 @@ COMPARE = Mapping(keys={
                            help="how the baseline's mean frame is registered to this stack's"),
     "points": POINT_PAIRS,
 }, required=("baseline",), help="difference with a baseline stack (differential thermography)")
+class _RegionNumbers(Node):
+    """A number, or {region name: number, ..., default: number}."""
+
+    def __init__(self, item, help=""):
+        super().__init__(help=help)
+        self.item = item
+
+    def check(self, v, path, ctx):
+        if _is_num(v):
+            return self.item.check(v, path, ctx)
+        if not isinstance(v, dict) or not v:
+            ctx.fail(path, f"expected a number or {{region name: number, default: number}}, got {v!r}")
+        return {str(k): self.item.check(x, list(path) + [k], ctx) for k, x in v.items()}
+
+    def json(self):
+        return {"description": self.help, "anyOf": [self.item.json(),
+                {"type": "object", "additionalProperties": self.item.json()}]}
+
+
+class _Time(String):
+    """An ISO 8601 date-time text, checked when read."""
+
+    def check(self, v, path, ctx):
+        import datetime as _dt
+        if isinstance(v, _dt.datetime):        # YAML reads unquoted times as datetimes
+            return v.isoformat()
+        s = String.check(self, v, path, ctx)
+        t = s.strip()
+        try:
+            _dt.datetime.fromisoformat(t[:-1] + "+00:00" if t.endswith(("Z", "z")) else t)
+        except ValueError:
+            ctx.fail(path, f"'{s}' is not an ISO 8601 date-time; write e.g. \"2026-01-10T18:00:00\" "
+                           "(quoted, with an optional +01:00 offset)")
+        return t
+
+
+FRAME_TIMES = OneOf(options=(
+    (_has("file"), Mapping(keys={"file": FilePath(help="CSV with a column time (ISO 8601), one row per frame")},
+                           required=("file",)), "file"),
+    (_has("start"), Mapping(keys={"start": _Time(help="time of the first frame, ISO 8601"),
+                                  "interval_s": Number(lo=0.0, lo_open=True, help="time between frames [s]")},
+                            required=("start", "interval_s")), "start"),
+), expected="{start: \"2026-01-10T18:00:00\", interval_s: 1800} or {file: times.csv}",
+    help="time of each frame (time-lapse stacks); needed to match an air log")
+
+HEAT_FLOW = Mapping(keys={
+    "side": String(choices=("inside", "outside"), default="inside",
+                   help="surface seen: inside (reliable) or outside (night frames, less reliable)"),
+    "hemispherical_emissivity": _RegionNumbers(EMISSIVITY, help="total hemispherical emissivity for radiative "
+                                               "exchange (number or by region); default: normal emissivity x "
+                                               "hemispherical_ratio"),
+    "hemispherical_ratio": Number(lo=0.5, hi=1.0, default=0.95, help="hemispherical / normal emissivity "
+                                  "(dielectrics about 0.95, from memory)"),
+    "convective_coefficient_w_m2k": Number(lo=0.0, lo_open=True, hi=200.0,
+                                           help="h_c [W/(m2 K)]; default ISO 6946 Annex C: inside 2.5 (horizontal "
+                                                "flow), outside 4 + 4 v"),
+    "heat_flow_direction": String(choices=("horizontal", "upward", "downward"), default="horizontal",
+                                  help="inside h_c from ISO 6946 Annex C: walls horizontal (2.5), ceilings upward "
+                                       "(5.0), floors downward (0.7)"),
+    "wind_speed_m_s": Number(lo=0.0, hi=60.0, help="outside: wind speed at the facade [m/s] when the log has none"),
+    "radiant_temperature_c": Celsius(lo=-120.0, hi=100.0, help="radiant temperature the surface exchanges with "
+                                     "[C]; outside: sky and ground (required without a log column); inside: "
+                                     "default the stack's reflected temperature"),
+    "radiant_temperature_uncertainty_k": Number(lo=0.0, hi=50.0, help="u(T_r) of this stack's radiant temperature "
+                                                "[K]; default uncertainty.reflected_temperature_k"),
+    "reference": String(help="region of undisturbed wall: U_ref for thermal bridges, contact-sensor region"),
+    "contact_surface_c": Celsius(lo=-60.0, hi=100.0, help="contact-sensor reading on the reference region "
+                                 "(mean over the window) [C]; removes the camera's absolute offset"),
+    "window": Mapping(keys={"start": _Time(help="first time used"), "end": _Time(help="time after the last used")},
+                      help="data window (leave out sun and heating transients)"),
+    "night_only": Bool(help="use only frames between 20:00 and 06:00 on the frames' clock (default true outside)"),
+    "tilt_axis": String(choices=("rows", "cols"), default="rows",
+                        help="image axis along which the wall recedes (view angle divides that pixel side)"),
+    "surface_distance_m": Number(lo=0.0, lo_open=True, hi=300.0,
+                                 help="camera-to-surface distance for the footprint when conditions.distance_m is 0"),
+    "scale": Mapping(keys={"length_m": Number(lo=0.0, lo_open=True, help="known length on the wall [m]"),
+                           "between": ListOf(item=Pair(item=Number(), ordered=False), min_items=2,
+                                             help="[[row, col], [row, col]]: its ends in the image")},
+                     required=("length_m", "between"), help="pixel size from a known length in the scene"),
+    "areal_heat_capacity_kj_m2k": Number(lo=0.0, lo_open=True, hi=5000.0,
+                                         help="areal heat capacity of the element [kJ/(m2 K)] for the ISO 9869-1 "
+                                              "stored-heat criterion"),
+}, help="in-situ U-value, thermal-bridge psi and annual heat loss from a time-lapse stack (ISO 9869-1 average "
+        "method). Modes: inside (default) q = h_c (theta_ai - theta_si) + eps_h sigma (T_r^4 - T_si^4), U = sum q dt / "
+        "sum (theta_ai - theta_ae) dt, h_c default 2.5 (ISO 6946 Annex C), T_r the reflected temperature; outside "
+        "q = h_c (theta_se - theta_ae) + eps_h sigma (T_se^4 - T_sky^4), h_c = 4 + 4 v, needs radiant_temperature_c, "
+        "night frames only by default, less reliable. With survey.air_log and frame_times: time series, ISO 9869-1 "
+        "criteria (72 h, +-5 % vs 24 h earlier, first/last INT(2D/3) days, stored heat). Without a log: constant "
+        "survey air temperatures, single-time estimate, criteria not evaluable. Without frame_times: equal frame "
+        "weights, no window. Outputs: <name>.u_value.tif (rows, cols) W/(m2 K), <name>.heat_flux.tif (frames, rows, "
+        "cols) W/m2; per region area_m2, heat_flux_w_m2, u_value_w_m2k, u_value_expanded_uncertainty_w_m2k, "
+        "u_value_converged, annual_heat_loss_kwh; per stack heat_flow {...} and thermal_bridges [...]")
 
 STACK = Mapping(keys={
     "name": String(),
@@ -564,6 +667,8 @@ STACK = Mapping(keys={
     "time": String(help="when the stack was taken (free text, shown in comparisons)"),
     "align": ALIGN,
     "compare": COMPARE,
+    "frame_times": FRAME_TIMES,
+    "heat_flow": HEAT_FLOW,
 }, required=("name", "path"), help="one thermal stack")
 
 SCHEMA = Mapping(keys={
@@ -577,6 +682,13 @@ SCHEMA = Mapping(keys={
         "indoor_relative_humidity_pct": Number(lo=0.0, hi=100.0),
         "building_use": String(choices=tuple(CRITICAL_TEMPERATURE_FACTORS)),
         "critical_temperature_factor": Number(lo=0.0, hi=1.0),
+        "air_log": FilePath(help="CSV: time, indoor_air_c, outdoor_air_c [, wind_speed_m_s, radiant_temperature_c, "
+                                 "contact_surface_c], interpolated to the frame times"),
+        "heating_degree_days_kd": Number(lo=0.0, lo_open=True, hi=20000.0,
+                                         help="heating degree-days [K d per year] for annual heat loss"),
+        "heating_degree_days_base_c": Celsius(lo=-10.0, hi=30.0, help="base temperature of the degree-days [C]"),
+        "energy_price_per_kwh": Number(lo=0.0, lo_open=True, help="price of delivered heat per kWh (currency of your choice)"),
+        "heating_efficiency": Number(lo=0.0, lo_open=True, hi=6.0, help="seasonal efficiency of the heating (or COP)"),
     }),
     "camera": CAMERA,
     "conditions": CONDITIONS,
@@ -585,6 +697,10 @@ SCHEMA = Mapping(keys={
         "air_temperature_k": Number(lo=0.0, hi=50.0), "relative_humidity_pct": Number(lo=0.0, hi=50.0),
         "distance_m": Number(lo=0.0, hi=100.0), "camera_k": Number(lo=0.0, hi=20.0),
         "limit_k": Number(lo=0.0, lo_open=True, help="flag regions whose expanded uncertainty exceeds this"),
+        "convective_coefficient_w_m2k": Number(lo=0.0, hi=100.0, help="heat flow: u(h_c) [W/(m2 K)]; default 30 % of h_c"),
+        "indoor_air_k": Number(lo=0.0, hi=20.0, help="heat flow: indoor air sensor [K]; default 0.29"),
+        "outdoor_air_k": Number(lo=0.0, hi=20.0, help="heat flow: outdoor air sensor [K]; default 0.29"),
+        "contact_surface_k": Number(lo=0.0, hi=20.0, help="heat flow: contact surface sensor [K]; default 0.2"),
     }, help="standard uncertainties of the inputs (GUM)"),
     "materials": FilePath(help="extra material library YAML"),
     "stacks": ListOf(item=STACK, min_items=1),
@@ -742,6 +858,78 @@ def _cross_checks(cfg: Config):
         forced = "transmittance" in cond.get("atmosphere", {})
         if cond.get("distance_m", 0) > 0 and not forced and "relative_humidity_pct" not in cond:
             cfg.fail(["stacks", i], "distance_m > 0 needs relative_humidity_pct (or atmosphere: {transmittance: ...})")
+        if "heat_flow" in st or "frame_times" in st or any("thermal_bridge" in r for r in st.get("regions", [])):
+            _check_heat_flow(cfg, i, st, rnames, cond)
+    s = d.get("survey", {})
+    if ("energy_price_per_kwh" in s) != ("heating_efficiency" in s):
+        cfg.fail(["survey"], "a cost figure needs both energy_price_per_kwh and heating_efficiency; give both or neither")
+    if "energy_price_per_kwh" in s and "heating_degree_days_kd" not in s:
+        cfg.fail(["survey", "energy_price_per_kwh"], "a cost figure needs heating_degree_days_kd")
+
+
+def _check_heat_flow(cfg, i, st, rnames, cond):
+    """Cross-checks of the heat-flow keys of one stack (see HEAT_FLOW)."""
+    d = cfg.data
+    key = ["stacks", i]
+    hf = st.get("heat_flow")
+    survey = d.get("survey", {})
+    bridges = [j for j, r in enumerate(st.get("regions", [])) if "thermal_bridge" in r]
+    if hf is None:
+        if bridges:
+            cfg.fail(key + ["regions", bridges[0], "thermal_bridge"],
+                     "thermal_bridge needs the stack's heat_flow: {reference: <undisturbed wall region>, ...}")
+        return
+    cam = merged_camera(d, i)
+    if "scale" in hf:
+        b = hf["scale"]["between"]
+        if len(b) != 2 or tuple(b[0]) == tuple(b[1]):
+            cfg.fail(key + ["heat_flow", "scale", "between"], "give two different points [[row, col], [row, col]]")
+    else:
+        if cam.get("ifov_mrad") is None and cam.get("horizontal_fov_deg") is None:
+            cfg.fail(key, "heat_flow needs the pixel size on the wall: set camera.ifov_mrad or "
+                          "camera.horizontal_fov_deg, or heat_flow.scale: {length_m, between}")
+        if not cond.get("distance_m", 0) > 0 and "surface_distance_m" not in hf:
+            cfg.fail(key, "heat_flow needs the distance to the surface: set conditions.distance_m > 0, or "
+                          "heat_flow.surface_distance_m where the path correction is off (distance 0)")
+    ref = hf.get("reference")
+    if ref is not None and ref not in rnames:
+        cfg.fail(key + ["heat_flow", "reference"],
+                 f"'{ref}' is not a region of this stack; regions: {', '.join(sorted(rnames)) or 'none'}")
+    if bridges and ref is None:
+        cfg.fail(key + ["heat_flow"], "thermal_bridge regions need heat_flow.reference: the undisturbed wall region")
+    for j in bridges:
+        if st["regions"][j]["name"] == ref:
+            cfg.fail(key + ["regions", j, "thermal_bridge"], "the reference region cannot be a thermal bridge")
+    if "contact_surface_c" in hf and ref is None:
+        cfg.fail(key + ["heat_flow", "contact_surface_c"], "a contact reading needs heat_flow.reference: the region "
+                                                          "where the sensor sits")
+    eh = hf.get("hemispherical_emissivity")
+    if isinstance(eh, dict):
+        for k in eh:
+            if k != "default" and k not in rnames:
+                cfg.fail(key + ["heat_flow", "hemispherical_emissivity", k],
+                         f"'{k}' is not a region of this stack nor 'default'; regions: {', '.join(sorted(rnames))}")
+    has_log = "air_log" in survey
+    if has_log and "frame_times" not in st:
+        cfg.fail(key, "survey.air_log is matched to frame times: give this stack frame_times: "
+                      "{start: \"2026-01-10T18:00:00\", interval_s: 1800} or {file: times.csv}")
+    if not has_log and ("indoor_air_c" not in survey or "outdoor_air_c" not in survey):
+        cfg.fail(["survey"], f"heat_flow on stack '{st['name']}' needs the air temperatures: survey.air_log, or "
+                             "survey.indoor_air_c and survey.outdoor_air_c (single-time estimate)")
+    for k in ("window", "night_only"):
+        if hf.get(k) and "frame_times" not in st:
+            cfg.fail(key + ["heat_flow", k], f"{k} needs the stack's frame_times")
+    w = hf.get("window")
+    if w and "start" in w and "end" in w:
+        import datetime as _dt
+        a, b = (_dt.datetime.fromisoformat(w[k][:-1] + "+00:00" if w[k].endswith(("Z", "z")) else w[k])
+                for k in ("start", "end"))
+        if (a.tzinfo is None) != (b.tzinfo is None) or not a < b:
+            cfg.fail(key + ["heat_flow", "window"], "window start must be before end, both with or both without "
+                                                    "a UTC offset")
+    if hf.get("side") == "outside" and "radiant_temperature_c" not in hf and not has_log:
+        cfg.fail(key + ["heat_flow"], "side outside needs heat_flow.radiant_temperature_c (sky and ground) "
+                                      "or a radiant_temperature_c column in survey.air_log")
 
 
 def align_spec(stack: dict):

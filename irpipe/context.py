@@ -86,6 +86,9 @@ class StackContext:
     reflected_temperature_k: float | None = None   # None: reflector method
     reflector_mask: np.ndarray | None = None   # flat (M*N,) bool of the reflector region
     reflector_emissivity: float = 0.0
+    emissivity_normal: Any = None    # EmissivityField before view-angle scaling (heat flow)
+    heat_flow_inputs: Any = None     # irpipe.heatprep.HeatFlowInputs (heat_flow stacks)
+    air_log_mean_c: tuple | None = None   # (indoor, outdoor) air log mean over the frames [C]
     report: dict = field(default_factory=dict)
     invalid: dict = field(default_factory=dict)   # reason label -> count
     outputs: dict = field(default_factory=dict)   # kind -> file name
@@ -106,9 +109,11 @@ class StackContext:
     alignment: Any = None              # list of per-frame alignment.Similarity, None = rejected (align)
     temporal: dict | None = None       # mean frame, noise, time, air temperatures (temporal)
     comparison_picture: dict | None = None    # difference_k, checkerboard_c images (compare)
+    u_value_map: np.ndarray | None = None   # (M, N) float32 in-situ U [W/(m2 K)] (heat_flow)
 
 
 #: fields the preparation (``irpipe.prepare``) fills for every stack
 PREPARED = frozenset({"chunk.raw", "ctx.model", "ctx.path_model", "ctx.emissivity", "ctx.masks",
                       "ctx.nuc", "ctx.bad_pixel_mask", "ctx.reflected_temperature_k", "ctx.reflector_mask",
-                      "ctx.camera_cfg", "ctx.calibration"})
+                      "ctx.camera_cfg", "ctx.calibration", "ctx.emissivity_normal", "ctx.heat_flow_inputs",
+                      "ctx.air_log_mean_c"})

@@ -2,7 +2,7 @@
 
 Scenario (all invented): "Larchgate Mews, no. 7", a 1930s brick end-terrace surveyed on a
 still winter evening, 1 C outside and 20 C inside, plus its garden workshop's
-distribution board under load. Four stacks:
+distribution board under load, and a three-day time-lapse of a bedroom's external wall. Five stacks:
 
 * ``rear-elevation``: brick wall with a timber-framed window, a concrete lintel that is a
   thermal bridge, a patch of missing cavity insulation, and a weathered galvanised gutter
@@ -13,6 +13,11 @@ distribution board under load. Four stacks:
   apparent-temperature export (centikelvin), 6 frames as the load settles.
 * ``porch-reflector``: a painted door with crumpled-foil reflector in the scene, so that
   the reflected temperature is taken from the frames (ASTM E1862 reflector method).
+
+* ``bedroom-wall-72h``: 72 h time-lapse (144 frames at 30 min, 48 x 64 px) of the inside of
+  an external wall with a partly insulated field, a lintel strip without insulation and an
+  uninsulated solid-brick part, with the room's air log (``bedroom_air_log.csv``); surface
+  temperatures from a one-dimensional finite-difference wall under periodic outdoor air.
 
 ``write_demo(folder)`` writes the TIFF stacks, label maps and ``survey.yaml``; the frames
 shipped in ``demo_frames/`` were made by ``scripts/make_demo_frames.py`` with it.
@@ -40,6 +45,9 @@ survey:
   outdoor_air_c: 1.0
   indoor_relative_humidity_pct: 60
   building_use: dwelling
+  air_log: bedroom_air_log.csv
+  heating_degree_days_kd: 2600
+  heating_degree_days_base_c: 15.5
 camera:
   spectral_band_um: [7.5, 14.0]
   input: counts
@@ -112,6 +120,26 @@ stacks:
     regions:
       - {name: door-panel, rect: [20, 30, 110, 90]}
       - {name: foil, rect: [20, 120, 40, 140], role: reflector}
+  - name: bedroom-wall-72h
+    path: bedroom_wall_72h.tif
+    assessment: envelope
+    frame_times: {start: "2026-01-11T18:00:00", interval_s: 1800}
+    conditions:
+      emissivity: gypsum-plaster
+      reflected_temperature_c: 20.0
+      air_temperature_c: 20.0
+      relative_humidity_pct: 55
+      distance_m: 2.3
+    camera: {horizontal_fov_deg: 45.0}
+    heat_flow:
+      side: inside
+      reference: insulated-wall
+      areal_heat_capacity_kj_m2k: 180
+      radiant_temperature_uncertainty_k: 0.3
+    regions:
+      - {name: insulated-wall, rect: [22, 4, 44, 30], role: reference}
+      - {name: lintel, rect: [4, 4, 18, 44], thermal_bridge: {length_m: 1.2}}
+      - {name: solid-wall, rect: [22, 46, 44, 62]}
 output:
   dir: out
 """
@@ -234,9 +262,100 @@ def write_demo(folder) -> Path:
     tapp = m.apparent_temperature(s) + rng.normal(0, netd, s.shape)
     tifffile.imwrite(folder / "porch_door.tif", np.rint(300.0 * m.signal_table.forward(tapp) + 1000.0).astype(np.uint16))
 
+    _write_wall_72h(folder, np.random.default_rng(20260111), netd)
+
     cfg = folder / "survey.yaml"
     cfg.write_text(SURVEY_YAML)
     return cfg
+
+
+# --- the 72 h inside-wall time-lapse (heat flow) ------------------------------------------
+WALL_ROWS, WALL_COLS, WALL_FRAMES = 48, 64, 144
+# (thickness m, conductivity W/(m K), density kg/m3, specific heat J/(kg K)): typical design
+# values as in ISO 10456 / CIBSE Guide A tables, given from memory (invented wall)
+_PLASTER, _BRICK = (0.013, 0.57, 1300.0, 1000.0), (0.1025, 0.77, 1750.0, 840.0)
+_WALLS = {"insulated": [_PLASTER, (0.10, 0.21, 600.0, 1000.0), (0.05, 0.035, 30.0, 1030.0), _BRICK],
+          "lintel": [_PLASTER, (0.2525, 1.7, 2300.0, 1000.0)],
+          "solid": [_PLASTER, (0.215, 0.77, 1750.0, 840.0)]}
+
+
+def _indoor_c(t):
+    return 20.0 + 0.3 * np.sin(2 * np.pi * t / 5400.0)        # thermostat cycling
+
+
+def _outdoor_c(t):
+    return 3.0 + 4.0 * np.sin(2 * np.pi * (t - 9 * 3600.0) / 86400.0)
+
+
+def _wall_surface(layers, times, h_c=2.5, eps_h=0.86, h_e=25.0, dt=300.0, spinup=3 * 86400.0):
+    """Inside surface temperature [C] of a 1D wall (implicit finite volumes) at ``times`` [s]."""
+    from scipy.linalg import solve_banded
+
+    from .constants import SIGMA
+    k, cap, dx = [], [], []
+    for d, lam, rho, c in layers:
+        n = max(2, int(round(d / 0.005)))
+        k += [lam] * n
+        cap += [rho * c * d / n] * n
+        dx += [d / n] * n
+    k, cap, dx = map(np.array, (k, cap, dx))
+    g = 1.0 / (dx[:-1] / (2 * k[:-1]) + dx[1:] / (2 * k[1:]))
+    g_in, g_out = 2 * k[0] / dx[0], 1.0 / (dx[-1] / (2 * k[-1]) + 1.0 / h_e)
+    temp = np.full(k.size, 12.0 + K0)
+    ts = 18.0 + K0
+    out, t, j = [], -spinup, 0
+    while j < len(times):
+        if t >= times[j] - 1e-6:
+            out.append(ts - K0)
+            j += 1
+            continue
+        t += dt
+        ta, tr = _indoor_c(t) + K0, 20.0 + K0
+        hr = 4 * eps_h * SIGMA * ts ** 3
+        src = h_c * ta + eps_h * SIGMA * (tr ** 4 - ts ** 4) + hr * ts
+        a_s = h_c + hr
+        diag = cap / dt
+        diag = diag + np.concatenate([g, [0]]) + np.concatenate([[0], g])
+        diag[0] += g_in * a_s / (a_s + g_in)
+        diag[-1] += g_out
+        ab = np.zeros((3, k.size))
+        ab[0, 1:], ab[1], ab[2, :-1] = -g, diag, -g
+        rhs = cap / dt * temp
+        rhs[0] += g_in * src / (a_s + g_in)
+        rhs[-1] += g_out * (_outdoor_c(t) + K0)
+        temp = solve_banded((1, 1), ab, rhs)
+        ts = (src + g_in * temp[0]) / (a_s + g_in)
+    return np.array(out)
+
+
+def _write_wall_72h(folder, rng, netd):
+    import datetime as dt
+
+    import tifffile
+
+    from .pipeline import load_materials
+    times = np.arange(WALL_FRAMES) * 1800.0
+    surf = {key: _wall_surface(layers, times) for key, layers in _WALLS.items()}
+    t = np.empty((WALL_FRAMES, WALL_ROWS, WALL_COLS))
+    t[:] = surf["insulated"][:, None, None]
+    t[:, :, 46:] = surf["solid"][:, None, None]
+    t[:, 8:14, :46] = surf["lintel"][:, None, None]
+    m = _model(2.3, INDOOR_C, 55.0)
+    e = load_materials(type("C", (), {"data": {}})())["gypsum-plaster"]["emissivity"]
+    s = m.received_signal(t + K0, e, 20.0 + K0, INDOOR_C + K0)
+    tapp = m.apparent_temperature(s) + rng.normal(0, netd, s.shape)
+    tifffile.imwrite(folder / "bedroom_wall_72h.tif",
+                     np.rint(300.0 * m.signal_table.forward(tapp) + 1000.0).astype(np.uint16),
+                     photometric="minisblack")
+    start = dt.datetime(2026, 1, 11, 17, 50)
+    rows = ["time,indoor_air_c,outdoor_air_c,contact_surface_c"]
+    contact = np.interp(np.arange(WALL_FRAMES * 3 + 3) * 600.0 - 600.0, times, surf["insulated"])
+    for k in range(WALL_FRAMES * 3 + 3):               # every 10 min, covering the frames
+        ts = k * 600.0 - 600.0
+        rows.append(f"{(start + dt.timedelta(seconds=k * 600.0)).isoformat()},"
+                    f"{_indoor_c(ts) + rng.normal(0, 0.05):.2f},{_outdoor_c(ts) + rng.normal(0, 0.1):.2f},"
+                    f"{contact[k] + rng.normal(0, 0.03):.2f}")
+    (folder / "bedroom_air_log.csv").write_text("\n".join(rows) + "\n")
 
 
 def demo_folder():

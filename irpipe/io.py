@@ -506,6 +506,66 @@ def write_tiff_atomic(dest, array, description=""):
     w.commit()
 
 
+# --- heat flow: frame times and air logs (CSV) -------------------------------------------
+
+def _read_csv_rows(path, label, needed):
+    path = Path(path)
+    try:
+        with path.open(newline="", encoding="utf-8-sig") as fh:
+            reader = csv.DictReader(fh)
+            rows = list(reader)
+            header = [h.strip() for h in (reader.fieldnames or [])]
+    except (OSError, UnicodeDecodeError, csv.Error) as exc:
+        raise InputDataError(f"{path}: {label} cannot be read ({exc}); give a UTF-8 CSV file") from None
+    missing = [c for c in needed if c not in header]
+    if missing:
+        raise InputDataError(f"{path}: {label} lacks column(s) {', '.join(missing)} (header: "
+                             f"{', '.join(header) or 'none'}); the first line must name the columns, "
+                             f"e.g. {','.join(needed)}")
+    if not rows:
+        raise InputDataError(f"{path}: {label} has a header but no data rows")
+    return [{(k or "").strip(): (v or "").strip() for k, v in r.items()} for r in rows]
+
+
+def read_frame_times(path):
+    """CSV with a column ``time`` (ISO 8601), one row per frame -> list of text times."""
+    return [r["time"] for r in _read_csv_rows(path, "frame-time file", ["time"])]
+
+
+AIR_LOG_COLUMNS = ("indoor_air_c", "outdoor_air_c")
+AIR_LOG_OPTIONAL = ("wind_speed_m_s", "radiant_temperature_c", "contact_surface_c")
+
+
+def read_air_log(path):
+    """Air-temperature log CSV with columns ``time`` (ISO 8601), ``indoor_air_c``,
+    ``outdoor_air_c`` and optionally ``wind_speed_m_s``, ``radiant_temperature_c``,
+    ``contact_surface_c``.
+
+    Returns
+    -------
+    (times, columns) : list of str, dict of name -> ndarray (L,) float
+        Optional columns present in the header are included; an empty cell is NaN only in
+        an optional column.
+    """
+    path = Path(path)
+    rows = _read_csv_rows(path, "air log", ["time", *AIR_LOG_COLUMNS])
+    present = [c for c in AIR_LOG_OPTIONAL if c in rows[0]]
+    cols = {c: np.empty(len(rows)) for c in (*AIR_LOG_COLUMNS, *present)}
+    for i, r in enumerate(rows):
+        for c in cols:
+            v = r.get(c, "")
+            if v == "" and c in AIR_LOG_OPTIONAL:
+                cols[c][i] = np.nan
+                continue
+            try:
+                cols[c][i] = float(v)
+            except ValueError:
+                raise InputDataError(f"{path}: air log row {i + 2}, column {c}: '{v}' is not a number") from None
+            if not np.isfinite(cols[c][i]):
+                raise InputDataError(f"{path}: air log row {i + 2}, column {c}: '{v}' is not a finite number")
+    return [r["time"] for r in rows], cols
+
+
 def remove_stale_parts(folder, before: float) -> list:
     """Remove temporary outputs that a killed run left in ``folder``: files and folders
     named ``.<name>.<random>.part`` (``atomic`` writes, Zarr folders) last modified before
@@ -532,3 +592,13 @@ def remove_stale_parts(folder, before: float) -> list:
         except OSError:
             pass
     return removed
+
+
+def read_u_value_map(path):
+    """A written ``<name>.u_value.tif`` as (M, N) float32, or None if it cannot be read
+    (a picture is not worth failing the report for)."""
+    try:
+        with StackReader(path, "U-value map") as r:
+            return r.read(0, 1)[0].astype(np.float32)
+    except (InputDataError, OSError):
+        return None

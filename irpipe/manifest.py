@@ -49,6 +49,10 @@ def stack_inputs(cfg: Config, i: int, cam=None) -> list:
     files += [r["mask"] for r in st.get("regions", []) if "mask" in r]
     if "materials" in cfg.data:
         files.append(cfg.data["materials"])
+    if "file" in (st.get("frame_times") or {}):
+        files.append(st["frame_times"]["file"])
+    if "frame_times" in st and "air_log" in cfg.data.get("survey", {}):
+        files.append(cfg.data["survey"]["air_log"])
     return files
 
 

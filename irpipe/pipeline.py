@@ -99,9 +99,16 @@ def _report_picture(ctx, out_dir, outputs):
                 pic = picture_from_tiff(Path(out_dir) / f)
             except Exception:       # a picture is not worth failing the report for
                 pic = None
-    if pic is not None and ctx.comparison_picture is not None:    # issue 12
+    if pic is None:
+        return None
+    pic = {**pic, "masks": dict(ctx.masks)}
+    if ctx.comparison_picture is not None:    # issue 12
         pic["compare"] = ctx.comparison_picture
-    return None if pic is None else {**pic, "masks": dict(ctx.masks)}
+    if (outputs or {}).get("u_value"):      # heat flow: the U map for the report
+        from .io import read_u_value_map
+        pic["u_value_map"] = (ctx.u_value_map if ctx.u_value_map is not None
+                              else read_u_value_map(Path(out_dir) / outputs["u_value"]))
+    return pic
 
 
 @dataclass

@@ -193,6 +193,10 @@ def prepare_stack(cfg: Config, i: int, out_dir, cameras: dict, materials, option
         _prepare_maps(ctx, cfg, key, cam)
         _prepare_regions(ctx, cfg, key, st)
         _prepare_conditions(ctx, cfg, key, cond, with_model)
+        if "heat_flow" in st or "frame_times" in st:
+            from .heatprep import prepare_heat_flow
+            with _where(cfg, key):
+                prepare_heat_flow(ctx, cfg)
     finally:
         reader.close()
     return ctx
@@ -240,6 +244,7 @@ def _prepare_conditions(ctx, cfg, key, cond, with_model=True):
                                             masks=ctx.masks)
     # oblique views: stack-wide angle, replaced by a region's own angle for its pixels;
     # metals (emissivity < 0.5) are left as they are (irpipe.emissivity.apply_view_angles)
+    ctx.emissivity_normal = ctx.emissivity     # before view-angle scaling (heat flow)
     region_angles = [(n, ctx.masks[n], r["view_angle_deg"]) for n, r in ctx.region_cfg.items()
                      if r.get("view_angle_deg") is not None]
     if "view_angle_deg" in cond or region_angles:

@@ -19,7 +19,7 @@ LAYERS = [
                  "irpipe.emissivity", "irpipe.correction", "irpipe.regions", "irpipe.findings",
                  "irpipe.uncertainty", "irpipe.fieldmethods", "irpipe.kernel", "irpipe.heatflow",
                  "irpipe.alignment", "irpipe.compare", "irpipe.timeseries", "irpipe.colourtable"]),
-    ("prepare", ["irpipe.prepare", "irpipe.context", "irpipe.manifest", "irpipe.fingerprint"]),
+    ("prepare", ["irpipe.prepare", "irpipe.context", "irpipe.manifest", "irpipe.fingerprint", "irpipe.heatprep"]),
     ("stages", ["irpipe.stages"]),
     ("runner", ["irpipe.runner", "irpipe.parallel"]),
     ("report", ["irpipe.report"]),

@@ -386,6 +386,10 @@ def _stack_section(k, st, picture, findings, fig_no):
         out.append('<div class="box warn">No picture: the frame data of this stack were not available to the '
                    'report writer.</div>')
     out.append(_region_tables(st))
+    if st.get("heat_flow"):
+        from .heatflow import section
+        hf_html, fig_no = section(st, picture, fig_no)
+        out.append(hf_html)
     if st.get("alignment") or st.get("compare"):     # issue 12: own section (irpipe/report/comparison.py)
         from .comparison import comparison_section
         sec, fig_no = comparison_section(st, picture, mine, fig_no)

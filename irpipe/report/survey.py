@@ -47,6 +47,14 @@ def build_report(cfg, stacks: list) -> dict:
         warnings += [f"{st['name']}: {w}" for w in st.get("warnings", [])]
     return {"schema": REPORT_SCHEMA, "software": {"name": "irpipe", "version": __version__},
             "created_utc": now_utc(), "config": cfg.path.name, "survey": survey,
-            "warnings": warnings, "cautions": list(CAUTIONS), "stacks": stacks}
+            "warnings": warnings, "cautions": list(CAUTIONS) + _heat_flow_cautions(stacks), "stacks": stacks}
+
+
+def _heat_flow_cautions(stacks):
+    """The energy assessor's caution, only when a stack has heat-flow results."""
+    if not any(st.get("heat_flow") for st in stacks):
+        return []
+    from ..heatflow import ENERGY_CAUTION
+    return [ENERGY_CAUTION]
 
 

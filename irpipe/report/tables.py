@@ -209,7 +209,16 @@ def to_csv(rows, columns):
 
 
 def regions_csv(report):
-    return to_csv(region_rows(report), REGION_COLUMNS)
+    from .heatflow import region_columns, region_values
+    extra = region_columns(report)
+    if not extra:
+        return to_csv(region_rows(report), REGION_COLUMNS)
+    # heat-flow stacks: U, loss and psi columns after the general ones
+    rows = region_rows(report)
+    by = {(s["name"], r["name"]): (s, r) for s in done_stacks(report) for r in s.get("regions", []) or []}
+    for row in rows:
+        row.update(region_values(*by[(row["stack"], row["region"])]))
+    return to_csv(rows, REGION_COLUMNS + extra)
 
 
 def findings_csv(findings):

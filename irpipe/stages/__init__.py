@@ -18,6 +18,7 @@ def registry():
     from .dataset import DatasetWriterStage
     from .electrical import ElectricalStage
     from .envelope import EnvelopeStage
+    from .heatflow import HeatFlowStage
     from .picture import PictureStage
     from .radiometric import RadiometricStage
     from .regionstats import RegionStatsStage
@@ -28,9 +29,9 @@ def registry():
     from .compare import CompareStage        # issue 12
     from .temporal import TemporalStage      # issue 12
 
-    return [BadPixelStage, AlignStage, RadiometricStage, UncertaintyStage, RegionStatsStage, SpotStage,
-            PictureStage, TemporalStage, CompareStage, EnvelopeStage, ElectricalStage, DatasetWriterStage,
-            TemperatureWriterStage]
+    return [BadPixelStage, AlignStage, RadiometricStage, UncertaintyStage, RegionStatsStage, HeatFlowStage,
+            SpotStage, PictureStage, TemporalStage, CompareStage, EnvelopeStage, ElectricalStage,
+            DatasetWriterStage, TemperatureWriterStage]
 
 
 def build_chain(ctx, extra=()):

@@ -26,14 +26,16 @@ class EnvelopeStage(Stage):
     @classmethod
     def applies(cls, ctx):
         s = ctx.cfg.data.get("survey", {})
-        return ("indoor_air_c" in s and "outdoor_air_c" in s and ctx.masks
+        air = ("indoor_air_c" in s and "outdoor_air_c" in s) or ctx.air_log_mean_c is not None
+        return (air and ctx.masks
                 and ctx.stack.get("assessment") != "electrical" and ctx.stack.get("view_from", "inside") == "inside")
 
     # The frame-averaged image comes from the picture stage, which runs before this one.
 
     def finish(self, ctx):
         s = ctx.cfg.data["survey"]
-        ti, te = s["indoor_air_c"], s["outdoor_air_c"]
+        log_mean = ctx.air_log_mean_c     # air log's mean over the frames (heat flow)
+        ti, te = log_mean if log_mean else (s["indoor_air_c"], s["outdoor_air_c"])
         rh = s.get("indoor_relative_humidity_pct")
         crit_default = s.get("critical_temperature_factor")
         if crit_default is None:
@@ -63,3 +65,5 @@ class EnvelopeStage(Stage):
         ctx.report["envelope_conditions"] = {"indoor_air_c": ti, "outdoor_air_c": te,
                                             "indoor_relative_humidity_pct": rh,
                                             "critical_temperature_factor": crit_default}
+        if log_mean:
+            ctx.report["envelope_conditions"]["air_temperatures"] = "air log, time-weighted mean over the frames"

@@ -74,7 +74,8 @@ class UncertaintyStage(Stage):
     @classmethod
     def applies(cls, ctx):
         sec = ctx.cfg.data.get("uncertainty") or {}
-        return any(bool(v) for v in sec.values())
+        own = set(CONFIG_KEYS.values()) | {"limit_k"}     # heat-flow inputs are used by the heat-flow stage
+        return any(bool(v) for k, v in sec.items() if k in own)
 
     def start(self, ctx):
         self.sec = dict(ctx.cfg.data.get("uncertainty") or {})
