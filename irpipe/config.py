@@ -664,7 +664,7 @@ STACK = Mapping(keys={
     "assessment": String(choices=("envelope", "electrical", "general"), default="general"),
     "load_pct": Number(lo=0.0, lo_open=True, hi=200.0, help="electrical: load during the survey, % of rating"),
     "ambient_c": Celsius(help="electrical: ambient air near the equipment [C]"),
-    "time": String(help="when the stack was taken (free text, shown in comparisons)"),
+    "time": String(help="when the stack was taken (free text, shown in comparisons; default: frame_times.start)"),
     "align": ALIGN,
     "compare": COMPARE,
     "frame_times": FRAME_TIMES,

@@ -28,6 +28,7 @@ from ..constants import ZERO_CELSIUS
 from ..errors import InputDataError
 from ..io import StackReader, write_tiff_atomic
 from .base import Stage
+from .temporal import stack_time
 
 MANIFEST = "manifest.json"
 
@@ -134,7 +135,7 @@ class CompareStage(Stage):
         ctx.report["compare"] = {
             "baseline": {"stack": base["name"], "survey": base.get("survey"), "time": base.get("time"),
                          "source": base.get("source")},
-            "this_stack": {"stack": ctx.name, "time": ctx.stack.get("time")},
+            "this_stack": {"stack": ctx.name, "time": mine.get("time")},
             "registration": {"method": method, "row_shift_px": round(t.row_shift_px, 3),
                              "col_shift_px": round(t.col_shift_px, 3), "rotation_deg": round(t.rotation_deg, 4),
                              "scale": round(t.scale, 5),
@@ -227,7 +228,7 @@ def _written_mean(cfg, name, out_dir, ctx):
     _check_current(cfg, i, entry, out_dir, label)
     img, noise, meta = _mean_from_entry(entry, out_dir, label)
     sv = cfg.data.get("survey", {})
-    return {"mean_c": img, "noise": noise, "name": name, "time": cfg.data["stacks"][i].get("time"),
+    return {"mean_c": img, "noise": noise, "name": name, "time": stack_time(cfg.data["stacks"][i]),
             "survey": None, "source": "written outputs", "indoor_air_c": sv.get("indoor_air_c"),
             "outdoor_air_c": sv.get("outdoor_air_c")}
 
@@ -247,6 +248,6 @@ def _other_survey_mean(survey_path, name, ctx):
     _check_current(other, i, entry, out_dir, label)
     img, noise, meta = _mean_from_entry(entry, out_dir, label)
     sv = other.data.get("survey", {})
-    return {"mean_c": img, "noise": noise, "name": name, "time": other.data["stacks"][i].get("time"),
+    return {"mean_c": img, "noise": noise, "name": name, "time": stack_time(other.data["stacks"][i]),
             "survey": str(survey_path), "source": "written outputs of another survey",
             "indoor_air_c": sv.get("indoor_air_c"), "outdoor_air_c": sv.get("outdoor_air_c")}

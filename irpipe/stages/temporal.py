@@ -27,6 +27,12 @@ def is_baseline(ctx):
     return False
 
 
+def stack_time(stack):
+    """When a stack was taken: its ``time``, else the first frame's of ``frame_times.start``."""
+    t = stack.get("time") or (stack.get("frame_times") or {}).get("start")
+    return None if t is None else str(t)
+
+
 class TemporalStage(Stage):
     name = "temporal"
     requires = ("chunk.temperature_c",)
@@ -52,7 +58,7 @@ class TemporalStage(Stage):
         meta = {"software": "irpipe", "version": __version__, "units": "degC", "axes": "row,col", "stack": ctx.name,
                 "source": str(ctx.stack["path"].name), "frames_used": noise["frames"],
                 "aligned": "alignment" in ctx.report, "mean_noise_k": noise["mean_noise_k"],
-                "time": ctx.stack.get("time")}
+                "time": stack_time(ctx.stack)}
         for kind, img, q in (("mean", mean, "mean surface temperature over frames"),
                              ("std", std, "standard deviation of the surface temperature over frames")):
             if kind in self.products:
@@ -70,7 +76,7 @@ class TemporalStage(Stage):
                             "RMS difference of the even- and odd-frame means; both in the flattest half of the "
                             "pixels. white_noise_mean_k = frame_noise_k / sqrt(N) is for comparison only.",
             "files": files}
-        entry = {"mean_c": mean, "noise": noise, "time": ctx.stack.get("time"), "name": ctx.name,
+        entry = {"mean_c": mean, "noise": noise, "time": stack_time(ctx.stack), "name": ctx.name,
                  "indoor_air_c": ctx.cfg.data.get("survey", {}).get("indoor_air_c"),
                  "outdoor_air_c": ctx.cfg.data.get("survey", {}).get("outdoor_air_c")}
         ctx.temporal = entry
