@@ -79,7 +79,8 @@ from importlib import resources
 
 import numpy as np
 
-from .radiometry import SpectralResponse, planck_radiance
+from .constants import ZERO_CELSIUS
+from .radiometry import SpectralResponse
 
 __all__ = ["spectral_transmittance", "band_transmittance", "table_info"]
 
@@ -173,7 +174,7 @@ def _conditions(distance, air_temperature, relative_humidity, pressure):
     t = _table()
     d = _check("distance", distance, 0.0, t.distance[-1], "m")
     ta = _check("air_temperature", air_temperature, t.air_temperature[0], t.air_temperature[-1], "K",
-                show=lambda k: f"{k - 273.15:.2f} degC")
+                show=lambda k: f"{k - ZERO_CELSIUS:.2f} degC")
     rh = _check("relative_humidity", relative_humidity, 0.0, t.relative_humidity[-1], "(fraction)")
     p = _check("pressure", pressure, t.pressure[0], t.pressure[-1], "Pa",
                show=lambda pa: f"{pa / 1000:g} kPa")
@@ -270,37 +271,17 @@ def spectral_transmittance(wavelength, distance, air_temperature, relative_humid
     return tau.reshape(d.shape + nu.shape)
 
 
-def _band_node_weights(response, source_temperature):
-    """Weights w_k on the wavenumber nodes so that tau_band = sum_k w_k tau(nu_k)."""
-    t = _table()
-    nu = _wavenumber_of(response.wavelength, "band or response wavelength")
-    q = response.weights * planck_radiance(response.wavelength, source_temperature)
-    if not q.sum() > 0:
-        raise ValueError("the spectral response has no weight inside the band")
-    n = t.wavenumber.size
-    j = np.clip(np.searchsorted(t.wavenumber, nu, side="right") - 1, 0, n - 2)
-    f = (nu - t.wavenumber[j]) / (t.wavenumber[j + 1] - t.wavenumber[j])
-    w = np.bincount(j, q * (1.0 - f), minlength=n) + np.bincount(j + 1, q * f, minlength=n)
-    return w / q.sum()
-
-
 def band_transmittance(distance, air_temperature, relative_humidity, band=(7.5e-6, 14e-6),
                        pressure=101325.0, source_temperature=300.0, response=None):
     """Band transmittance of a horizontal LWIR path, weighted by a blackbody spectrum.
 
     Parameters
     ----------
-    distance : array_like
-        Path length [m], 0 to 316 m; 0 gives exactly 1.
-    air_temperature : array_like
-        Air temperature along the path [K], 212-338 K.
-    relative_humidity : array_like
-        Relative humidity along the path [fraction 0-1].
+    distance, air_temperature, relative_humidity, pressure : array_like
+        The path, as for ``spectral_transmittance`` [m, K, fraction 0-1, Pa].
     band : (float, float), optional
         Rectangular band limits (lo, hi) [m]; ignored when ``response`` is given.
         Default 7.5-14 um.
-    pressure : array_like, optional
-        Total air pressure [Pa], 50-110 kPa; default 101325 Pa.
     source_temperature : float, optional
         Temperature of the blackbody whose spectrum weights the mean [K]; default 300 K.
     response : (array_like, array_like) or SpectralResponse, optional
@@ -322,10 +303,11 @@ def band_transmittance(distance, air_temperature, relative_humidity, band=(7.5e-
     -----
     tau_band = integral tau(lambda) R(lambda) L_lambda(lambda, T_s) d lambda
                / integral R(lambda) L_lambda(lambda, T_s) d lambda,
-    with L_lambda Planck's law (``irpipe.radiometry.planck_radiance``) and R = 1 inside
-    ``band`` if no response is given.  The integral is a trapezoid sum on the response's
-    fine grid with tau piecewise linear in wavenumber, contracted once onto the table's
-    wavenumber nodes.
+    with L_lambda Planck's law and R = 1 inside ``band`` if no response is given: the
+    spectral transmittance (``spectral_transmittance``, piecewise linear in wavenumber)
+    on the response's fine grid, averaged by
+    ``irpipe.radiometry.SpectralResponse.weighted_transmittance`` (trapezoid sums), the
+    same band mean the measurement model uses.
     """
     if response is None:
         lo, hi = band
@@ -338,8 +320,9 @@ def band_transmittance(distance, air_temperature, relative_humidity, band=(7.5e-
     ts = float(source_temperature)
     if not (np.isfinite(ts) and ts > 0):
         raise ValueError(f"source_temperature must be a positive temperature in K, got {source_temperature}")
-    w = _band_node_weights(resp, ts)
-    d, ta, rh, p = _conditions(distance, air_temperature, relative_humidity, pressure)
-    tau = _node_transmittance(d.ravel(), ta.ravel(), rh.ravel(), p.ravel()) @ w
-    tau = tau.reshape(d.shape)
+    _wavenumber_of(resp.wavelength, "band or response wavelength")
+    tau = resp.weighted_transmittance(
+        spectral_transmittance(resp.wavelength, distance, air_temperature, relative_humidity, pressure), ts)
+    if not np.all(np.isfinite(tau)):
+        raise ValueError("the spectral response has no weight inside the band")
     return float(tau) if tau.ndim == 0 else tau

@@ -799,6 +799,11 @@ def _cross_checks(cfg: Config):
             _check_camera(cfg, merged_camera(d, i), ["stacks", i, "camera"])
         if st["name"] in names:
             cfg.fail(["stacks", i, "name"], f"stack name '{st['name']}' used twice; names must be unique")
+        bad = [ch for ch in ("/", "\\", "\0") if ch in st["name"]]
+        if bad or st["name"].startswith(".") or not st["name"].strip():
+            cfg.fail(["stacks", i, "name"], f"stack name {st['name']!r} cannot name output files (it starts "
+                                            "with '.', is empty, or holds '/' or '\\'); use letters, digits, "
+                                            "'-' and '_'")
         names.add(st["name"])
         rnames = set()
         for j, r in enumerate(st.get("regions", [])):

@@ -28,7 +28,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from .calibration import sakuma_hattori_signal
-from .radiometry import MonotoneTable, SpectralResponse, node_temperatures
+from .modeltables import measurement_tables
+from .radiometry import SpectralResponse
 
 # reason codes for invalid pixels (uint8), shared by stages and reports
 VALID, SATURATED, OUT_OF_RANGE, NON_PHYSICAL, INVALID_INPUT = 0, 1, 2, 3, 4
@@ -81,26 +82,16 @@ class MeasurementModel:
         self.flat = tau.ndim == 0
         self.tau = tau
         self.t_range = (float(t_range[0]), float(t_range[1]))
-        # one Planck evaluation on the table nodes serves both tables
-        t_nodes = node_temperatures(*self.t_range)
-        r = camera.response
-        if self.flat:
-            s_nodes = camera.signal(t_nodes)
-            g_nodes = s_nodes * float(self.tau)
-        else:
-            l_plain, l_tau = r.band_radiances(t_nodes, [None, self.tau])
-            s_nodes = l_plain if camera.kind == "band" else camera.signal(t_nodes)
-            g_nodes = s_nodes * (l_tau / l_plain)
-        self.signal_table = MonotoneTable(camera.signal, *self.t_range, samples=s_nodes)
-        self.path_table = MonotoneTable(self.path_signal, *self.t_range, samples=g_nodes)
+        # one Planck evaluation on the table nodes per response serves every path, and
+        # equal conditions share their tables (irpipe.modeltables)
+        self.signal_table, self.path_table = measurement_tables(camera, self.tau, self.t_range, self.path_signal)
 
     def effective_transmittance(self, temperature):
         """tau_eff(T): band transmittance weighted by a blackbody at T [fraction]."""
         t = np.asarray(temperature, dtype=float)
         if self.flat:
             return np.broadcast_to(self.tau, t.shape).astype(float)
-        l_plain, l_tau = self.camera.response.band_radiances(t, [None, self.tau])
-        return l_tau / l_plain
+        return self.camera.response.weighted_transmittance(self.tau, t)
 
     def path_signal(self, temperature):
         """G(T) = S(T) tau_eff(T): signal of a blackbody at T after the path."""
@@ -114,14 +105,23 @@ class MeasurementModel:
                 + (1 - eps) * self.path_signal(reflected_temperature)
                 + self.camera.signal(air_temperature) - g_air)
 
-    def background(self, emissivity, reflected_temperature, air_temperature):
-        """(reflected term G(T_refl), path emission S(T_air) - G(T_air)) as float64 scalars/arrays."""
+    def background(self, emissivity, reflected_temperature, air_temperature, fast=False):
+        """(reflected term G(T_refl), path emission S(T_air) - G(T_air)) as float64 scalars/arrays.
+
+        ``fast=True`` reads G and S from the dense forward tables (``forward_fast``,
+        relative error ~1e-8) instead of one band integral per value: for many
+        temperatures at once, e.g. Monte Carlo trials.
+        """
+        if fast:
+            g_refl = self.path_table.forward_fast(reflected_temperature)
+            path = self.signal_table.forward_fast(air_temperature) - self.path_table.forward_fast(air_temperature)
+            return g_refl, path
         g_refl = self.path_signal(reflected_temperature)
         path = self.camera.signal(air_temperature) - self.path_signal(air_temperature)
         return g_refl, path
 
     def object_temperature(self, signal, emissivity, reflected_temperature, air_temperature,
-                           dtype=np.float64):
+                           dtype=np.float64, fast=False):
         """Solve the measurement equation per pixel.
 
         Parameters
@@ -133,12 +133,15 @@ class MeasurementModel:
             Scalars, or arrays broadcasting with ``signal`` (e.g. shape (F, 1, 1) per frame).
         dtype : numpy float type
             Working precision of the per-pixel arithmetic.
+        fast : bool
+            Background terms from the forward tables (see ``background``): for
+            reflected and air temperatures that vary per pixel or per trial.
 
         Returns
         -------
         temperature : ndarray [K]; NaN where no physical solution exists.
         """
-        g_refl, path = self.background(emissivity, reflected_temperature, air_temperature)
+        g_refl, path = self.background(emissivity, reflected_temperature, air_temperature, fast=fast)
         eps = np.asarray(emissivity, dtype=dtype)
         num = np.asarray(signal, dtype=dtype) - np.asarray(path, dtype=dtype)
         num -= (1 - eps) * np.asarray(g_refl, dtype=dtype)

@@ -39,13 +39,13 @@ import numpy as np
 
 from .calibration import (fit_linear, fit_sakuma_hattori, sakuma_hattori_signal, sakuma_hattori_temperature,
                           two_point_nuc)
-from .uncertainty import COVERAGE_FACTOR
+from .constants import ZERO_CELSIUS
+from .uncertainty import COVERAGE_FACTOR, STEPS, sensitivity
 
 # A surface closer than this to the reflected temperature leaves G(T) - G(T_refl) too
 # small for a useful emissivity (ASTM E1933 asks for a specimen temperature well away
 # from the reflected temperature; the 10 K figure is common practice, from memory).
 MIN_CONTRAST_K = 10.0
-STEP_K, STEP_EPS = 0.05, 1e-3
 
 
 # --- emissivity (ASTM E1933) -----------------------------------------------------------
@@ -213,28 +213,22 @@ def estimate_emissivity(surface_signal, reflected_temperature, air_temperature, 
     if not np.isfinite(t0):
         raise ValueError("the reference region's signal has no physical solution; check its emissivity and "
                          "the reflected temperature")
-    inputs = [("reflected_temperature", "tr", u_reflected_temperature, STEP_K),
-              ("camera", "dt_cam", u_camera, STEP_K)]
-    inputs += [("contact_temperature", "t_contact", u_contact, STEP_K)] if contact else \
-        [("reference_emissivity", "eps_ref", u_reference_emissivity, STEP_EPS)]
-    budget = {}
-    for name, key, u, h in inputs:
-        if not u:
-            continue
-        xp, xm = dict(x0), dict(x0)
-        xp[key] = x0[key] + h
-        xm[key] = x0[key] - h
-        c = (estimate(**xp) - estimate(**xm)) / (2 * h)
-        budget[name] = abs(c) * u
+    inputs = [("reflected_temperature", "tr", u_reflected_temperature),
+              ("camera", "dt_cam", u_camera)]
+    inputs += [("contact_temperature", "t_contact", u_contact)] if contact else \
+        [("reference_emissivity", "eps_ref", u_reference_emissivity)]
+    inputs = [(name, key, u) for name, key, u in inputs if u]
+    coef = sensitivity(lambda **one: estimate(**{**x0, **one}), x0, {key: STEPS[name] for name, key, _ in inputs})
+    budget = {name: abs(float(coef[key])) * u for name, key, u in inputs}
     eps_pix = emissivity_from_signal(s, t0, x0["tr"], air_temperature, model)
     scatter = float(np.std(eps_pix, ddof=1)) if s.size > 1 else 0.0
     budget["pixel_scatter"] = scatter
     uc = float(np.sqrt(sum(v * v for v in budget.values())))           # Eq. 10 of [3]
     warnings = []
     if abs(t0 - x0["tr"]) < MIN_CONTRAST_K:
-        warnings.append(f"the surface ({t0 - 273.15:.1f} C) is only {abs(t0 - x0['tr']):.1f} K from the reflected "
-                        f"temperature ({x0['tr'] - 273.15:.1f} C); below about {MIN_CONTRAST_K:g} K the method "
-                        "loses its sensitivity: heat or cool the specimen, or change the surroundings")
+        warnings.append(f"the surface ({t0 - ZERO_CELSIUS:.1f} C) is only {abs(t0 - x0['tr']):.1f} K from the "
+                        f"reflected temperature ({x0['tr'] - ZERO_CELSIUS:.1f} C); below about {MIN_CONTRAST_K:g} K "
+                        "the method loses its sensitivity: heat or cool the specimen, or change the surroundings")
     if not 0 < eps0 <= 1:
         warnings.append(f"the estimate {eps0:.3f} is outside (0, 1]: check the reflected temperature, the "
                         "reference emissivity and that both regions are at the same temperature")

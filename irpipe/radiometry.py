@@ -15,13 +15,14 @@ References
 """
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass, field
 
 import numpy as np
 from scipy.interpolate import CubicSpline
 from scipy.optimize import brentq
 
-from .constants import C1L, C2
+from .constants import C1L, C2, ZERO_CELSIUS
 
 # Root of x = 5 (1 - exp(-x)), the Wien displacement constant b = C2 / x.
 # Value computed by brentq at import time (no hard-coded number).
@@ -130,25 +131,21 @@ class SpectralResponse:
         """Band radiance for several weightings at once, sharing the Planck evaluations.
 
         Returns an array of shape (len(transmittances),) + temperature.shape; ``None`` in
-        ``transmittances`` stands for no path.
+        ``transmittances`` stands for no path. ``temperature`` may be a ``PlanckTable`` of
+        this response (Planck's law evaluated once for many weightings).
         """
-        t = np.asarray(temperature, dtype=float)
         ws = np.stack([self.weights if tr is None else self.weights * np.asarray(tr, float)
                        for tr in transmittances], axis=1)              # (K, J)
-        flat = t.reshape(-1)
-        out = np.empty((flat.size, ws.shape[1]))
-        blk = max(1, 2_000_000 // self.wavelength.size)
-        for s in range(0, flat.size, blk):
-            out[s:s + blk] = planck_radiance(self.wavelength[None, :], flat[s:s + blk, None]) @ ws
-        return np.moveaxis(out, 1, 0).reshape((ws.shape[1],) + t.shape)
+        shape, out = self._integrate(temperature, ws)
+        return np.moveaxis(out, 1, 0).reshape((ws.shape[1],) + shape)
 
     def band_radiance(self, temperature, transmittance=None):
         """Band radiance seen through this response [W m-2 sr-1].
 
         Parameters
         ----------
-        temperature : array_like
-            Blackbody temperature [K], any shape.
+        temperature : array_like or PlanckTable
+            Blackbody temperature [K], any shape; or a ``PlanckTable`` of this response.
         transmittance : array_like of shape (K,), optional
             Spectral transmittance of a path at ``self.wavelength`` [fraction].
 
@@ -157,16 +154,99 @@ class SpectralResponse:
         L_band(T) = integral R(lambda) tau(lambda) L_lambda(lambda, T) d lambda, by the
         trapezoid rule on the response grid.
         """
-        t = np.asarray(temperature, dtype=float)
         w = self.weights if transmittance is None else self.weights * np.asarray(transmittance, float)
-        flat = t.reshape(-1)
-        out = np.empty(flat.shape)
+        shape, out = self._integrate(temperature, w)
+        return out.reshape(shape)
+
+    def weighted_transmittance(self, transmittance, temperature):
+        """Band transmittance of a spectral transmittance, weighted by a blackbody at T.
+
+        Parameters
+        ----------
+        transmittance : array_like of shape (K,) or (..., K)
+            Spectral transmittance at ``self.wavelength`` [fraction]; leading axes are
+            several paths.
+        temperature : array_like or PlanckTable
+            Temperature of the source whose spectrum weights the mean [K].
+
+        Returns
+        -------
+        ndarray
+            tau_eff [fraction], of shape ``transmittance.shape[:-1] + temperature.shape``.
+
+        Notes
+        -----
+        tau_eff(T) = integral R tau L_lambda(lambda, T) d lambda / integral R L_lambda(lambda, T) d lambda,
+        both by the trapezoid rule on the response grid (``band_radiances``), Planck's law
+        from [1]_.
+        """
+        tau = np.asarray(transmittance, dtype=float)
+        rows = tau.reshape(-1, tau.shape[-1])
+        l_band = self.band_radiances(temperature, [None, *rows])
+        out = l_band[1:] / l_band[0]
+        return out.reshape(tau.shape[:-1] + out.shape[1:])
+
+    def planck_table(self, temperature):
+        """Planck's law at this response's wavelengths for fixed temperatures, kept.
+
+        Band integrals of the returned ``PlanckTable`` under any weighting cost one
+        weighted sum each and equal, bit for bit, those computed from the temperatures.
+        Its size is ``temperature.size * K * 8`` bytes.
+        """
+        t = np.asarray(temperature, dtype=float)
+        return PlanckTable(self.wavelength, t, tuple(self._planck_blocks(t.reshape(-1))))
+
+    def _planck_blocks(self, flat):
+        """(slice, L_lambda of shape (n, K)) over a flat temperature array, in blocks."""
         # blocks keep the (T, lambda) temporary small
         blk = max(1, 2_000_000 // self.wavelength.size)
         for s in range(0, flat.size, blk):
-            lt = planck_radiance(self.wavelength[None, :], flat[s:s + blk, None])
-            out[s:s + blk] = lt @ w
-        return out.reshape(t.shape)
+            yield slice(s, s + blk), planck_radiance(self.wavelength[None, :], flat[s:s + blk, None])
+
+    def _integrate(self, temperature, w):
+        """sum_k w_k L_lambda(lambda_k, T) for each T, w of shape (K,) or (K, J): the one
+        loop of the band integrals. Returns (temperature shape, values of shape (T.size,) + w.shape[1:])."""
+        if isinstance(temperature, PlanckTable):
+            if temperature.wavelength is not self.wavelength and \
+                    not np.array_equal(temperature.wavelength, self.wavelength):
+                raise ValueError("the Planck table belongs to another spectral response")
+            shape, blocks = temperature.temperature.shape, temperature.blocks
+            size = temperature.temperature.size
+        else:
+            t = np.asarray(temperature, dtype=float)
+            shape, size = t.shape, t.size
+            blocks = self._planck_blocks(t.reshape(-1))
+        out = np.empty((size,) + w.shape[1:])
+        for sl, lt in blocks:
+            out[sl] = lt @ w
+        return shape, out
+
+
+@dataclass(frozen=True, eq=False)
+class PlanckTable:
+    """Spectral radiance L_lambda(lambda_k, T_i) of a response's wavelengths at fixed
+    temperatures, kept in the blocks that ``SpectralResponse`` band integrals use.
+
+    Made by ``SpectralResponse.planck_table``; pass it instead of the temperatures to
+    ``band_radiance``, ``band_radiances`` or ``weighted_transmittance``.
+
+    Attributes
+    ----------
+    wavelength : ndarray of shape (K,)
+        The response's quadrature nodes [m].
+    temperature : ndarray
+        The temperatures [K].
+    blocks : tuple of (slice, ndarray of shape (n, K))
+        L_lambda [W m-2 sr-1 m-1] for the flat temperatures in each slice.
+    """
+
+    wavelength: np.ndarray
+    temperature: np.ndarray
+    blocks: tuple = field(repr=False)
+
+    @property
+    def nbytes(self):
+        return sum(b.nbytes for _, b in self.blocks)
 
 
 def _trapezoid_weights(x):
@@ -178,8 +258,17 @@ def _trapezoid_weights(x):
 
 
 def node_temperatures(t_min, t_max, n=4096):
-    """The dense sampling grid of MonotoneTable: 4n nodes uniform in 1/T, increasing T [K]."""
-    return 1.0 / np.linspace(1.0 / float(t_max), 1.0 / float(t_min), 4 * n)[::-1]
+    """The dense sampling grid of MonotoneTable: 4n nodes uniform in 1/T, increasing T [K].
+
+    Read-only, one array per grid: the tables of one range share it."""
+    return _node_grid(float(t_min), float(t_max), int(n))
+
+
+@functools.lru_cache(maxsize=16)
+def _node_grid(t_min, t_max, n):
+    nodes = 1.0 / np.linspace(1.0 / t_max, 1.0 / t_min, 4 * n)[::-1]
+    nodes.setflags(write=False)
+    return nodes
 
 
 class MonotoneTable:
@@ -207,7 +296,7 @@ class MonotoneTable:
         s = np.asarray(func(t_nodes) if samples is None else samples, dtype=float)
         if np.any(~np.isfinite(s)) or np.any(s <= 0) or np.any(np.diff(s) <= 0):
             raise ValueError("signal model is not positive and strictly increasing over "
-                             f"{self.t_min - 273.15:.1f} .. {self.t_max - 273.15:.1f} C")
+                             f"{self.t_min - ZERO_CELSIUS:.1f} .. {self.t_max - ZERO_CELSIUS:.1f} C")
         y_nodes = np.log(s)
         self._t_nodes, self._y_nodes = t_nodes, y_nodes
         # inverse: x = 1/T as a smooth function of y, sampled on a uniform y grid

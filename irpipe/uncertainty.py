@@ -51,8 +51,10 @@ PATH_INPUTS = ("air_temperature", "relative_humidity", "distance")
 # Central-difference half steps, in the unit of each input. Small against any realistic
 # standard uncertainty (so c_i is the local derivative the GUM asks for), large against
 # the ~1e-6 K resolution of the float64 inverse table (so rounding does not show).
+# The last two serve the field emissivity method (irpipe.fieldmethods).
 STEPS = {"emissivity": 1e-3, "reflected_temperature": 0.05, "air_temperature": 0.05,
-         "relative_humidity": 0.01, "distance": 0.05, "camera": 0.05}
+         "relative_humidity": 0.01, "distance": 0.05, "camera": 0.05,
+         "contact_temperature": 0.05, "reference_emissivity": 1e-3}
 # physical bounds: one-sided differences at a bound (RH = 0 or 1, d = 0)
 BOUNDS = {"relative_humidity": (0.0, 1.0), "distance": (0.0, np.inf)}
 
@@ -169,35 +171,63 @@ def path_variant(base, transmittance):
     return MeasurementModel(base.camera, transmittance, base.t_range)
 
 
-def _solve_trials(model, signal, emissivity, reflected_temperature, air_temperature):
-    """Measurement equation solved for many trials with per-trial T_refl and T_air.
-
-    Same equation as ``MeasurementModel.object_temperature``, with G(T_refl), S(T_air)
-    and G(T_air) read from the models' dense forward tables (``forward_fast``, relative
-    error ~1e-8) instead of one band integral per trial.
-    """
-    eps = np.asarray(emissivity, float)
-    g_refl = model.path_table.forward_fast(reflected_temperature)
-    path = model.signal_table.forward_fast(air_temperature) - model.path_table.forward_fast(air_temperature)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        num = (np.asarray(signal, float) - path - (1 - eps) * g_refl) / eps
-    return model.path_table.inverse(num)
-
-
 def _as_cache(model_factory):
     return model_factory if isinstance(model_factory, ModelCache) else ModelCache(model_factory)
 
 
-def _step(name, x):
-    """(x_minus, x_plus) for a central difference, one-sided at a physical bound."""
+def step_points(x, h, bounds=(-np.inf, np.inf)):
+    """(x - h, x + h) for a central difference, clipped to ``bounds`` = (lo, hi): one-sided
+    at a physical bound."""
     x = np.asarray(x, float)
+    return np.maximum(x - h, bounds[0]), np.minimum(x + h, bounds[1])
+
+
+def sensitivity(f, x, steps, bounds=None):
+    """Sensitivity coefficients c_i = df/dx_i by central differences.
+
+    Parameters
+    ----------
+    f : callable
+        ``f(**{name: value})``: the output with the one input ``name`` moved to
+        ``value`` and every other input at its nominal value (float or ndarray).
+    x : mapping
+        Nominal value of each input named in ``steps`` (float or ndarray).
+    steps : mapping
+        Half step h_i of each input whose coefficient is wanted, in the input's unit
+        (float or ndarray broadcasting with x_i); the keys, in order, are the inputs.
+    bounds : mapping, optional
+        ``name -> (lo, hi)``: steps stop at these physical bounds.
+
+    Returns
+    -------
+    dict
+        Name -> c_i, in output units per unit of the input; NaN where either side is NaN.
+
+    Notes
+    -----
+    c_i = [f(x_i^+) - f(x_i^-)] / (x_i^+ - x_i^-), x_i^+- = clip(x_i +- h_i, lo_i, hi_i),
+    the other inputs at their nominal values: the numerical partial derivative that
+    Sect. 5.1.3 of [1]_ allows; one-sided where a step would cross a bound. The divisor is
+    the difference of the two points as evaluated, not 2 h_i.
+    """
+    coef = {}
+    for name, h in steps.items():
+        lo, hi = step_points(x[name], h, (bounds or {}).get(name, (-np.inf, np.inf)))
+        f_plus = f(**{name: hi})
+        f_minus = f(**{name: lo})
+        with np.errstate(invalid="ignore", divide="ignore"):
+            coef[name] = (f_plus - f_minus) / (hi - lo)
+    return coef
+
+
+def _half_step(name, x):
+    """h of the central difference for one input of the measurement equation at x."""
     h = STEPS[name]
     if name == "distance":
-        h = h + 0.01 * x
+        h = h + 0.01 * np.asarray(x, float)
     if name == "emissivity":
-        h = np.minimum(h, 0.5 * x)          # keep eps - h > 0
-    lo, hi = BOUNDS.get(name, (-np.inf, np.inf))
-    return np.maximum(x - h, lo), np.minimum(x + h, hi)
+        h = np.minimum(h, 0.5 * np.asarray(x, float))          # keep eps - h > 0
+    return h
 
 
 def sensitivity_coefficients(signal, emissivity, reflected_temperature, air_temperature, relative_humidity,
@@ -254,37 +284,33 @@ def sensitivity_coefficients(signal, emissivity, reflected_temperature, air_temp
             return model.object_temperature(s_, eps_, tr_, ta_)
 
     t0 = solve(base, s, eps, tr, ta)
+    unknown = [n for n in inputs if n not in INPUTS]
+    if unknown:
+        raise ValueError(f"unknown input '{unknown[0]}'; known: {', '.join(INPUTS)}")
+    x = {"emissivity": eps, "reflected_temperature": tr, "air_temperature": ta, "relative_humidity": rh,
+         "distance": d}
+    if "camera" in inputs:
+        x["camera"] = base.apparent_temperature(s)       # T_app, moved by +-h
+    steps = {name: _half_step(name, x[name]) for name in inputs}
     coef = {}
-    for name in inputs:
-        if name == "emissivity":
-            lo, hi = _step(name, eps)
-            tp, tm = solve(base, s, hi, tr, ta), solve(base, s, lo, tr, ta)
-        elif name == "reflected_temperature":
-            lo, hi = _step(name, tr)
-            tp, tm = solve(base, s, eps, hi, ta), solve(base, s, eps, lo, ta)
-        elif name == "camera":
-            t_app = base.apparent_temperature(s)
-            lo, hi = _step(name, t_app)
-            sp = base.signal_table.forward_fast(hi)
-            sm = base.signal_table.forward_fast(lo)
-            tp, tm = solve(base, sp, eps, tr, ta), solve(base, sm, eps, tr, ta)
-        elif name in PATH_INPUTS:
-            x = {"air_temperature": ta, "relative_humidity": rh, "distance": d}[name]
-            lo, hi = (float(v) for v in _step(name, x))
-            states = []
-            for v in (hi, lo):
-                st = {"air_temperature": ta, "relative_humidity": rh, "distance": d, name: v}
-                states.append((st["air_temperature"], st["relative_humidity"], st["distance"]))
-            mp, mm = models(*states[0]), models(*states[1])
-            if name != "air_temperature" and mp is base and mm is base:
+    for name in ("relative_humidity", "distance"):
+        # a path that does not change with this input: c = 0, no solve
+        if name in steps:
+            lo, hi = step_points(x[name], steps[name], BOUNDS[name])
+            st = [dict(x, **{name: v}) for v in (hi, lo)]
+            if all(models(v["air_temperature"], v["relative_humidity"], v["distance"]) is base for v in st):
                 coef[name] = np.where(np.isfinite(t0), 0.0, np.nan)
-                continue
-            tp = solve(mp, s, eps, tr, states[0][0])
-            tm = solve(mm, s, eps, tr, states[1][0])
-        else:
-            raise ValueError(f"unknown input '{name}'; known: {', '.join(INPUTS)}")
-        with np.errstate(invalid="ignore", divide="ignore"):
-            coef[name] = (tp - tm) / (hi - lo)
+                del steps[name]
+
+    def moved(camera=None, **one):
+        v = dict(x, **one)
+        path_moved = bool(one.keys() & set(PATH_INPUTS))
+        model = models(v["air_temperature"], v["relative_humidity"], v["distance"]) if path_moved else base
+        s_ = s if camera is None else base.signal_table.forward_fast(camera)
+        return solve(model, s_, v["emissivity"], v["reflected_temperature"], v["air_temperature"])
+
+    coef.update(sensitivity(moved, x, steps, BOUNDS))
+    coef = {name: coef[name] for name in inputs}
     if shape == ():
         return t0.reshape(()), {k: np.reshape(v, ()) for k, v in coef.items()}
     return t0, coef
@@ -444,7 +470,8 @@ def monte_carlo_uncertainty(signal, emissivity, reflected_temperature, air_tempe
     out = np.empty((p, n))
     if not dependent:
         t_air = ta + u.air_temperature * rng.standard_normal((p, n))
-        out[:] = _solve_trials(base, s, eps, tr, t_air)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            out[:] = base.object_temperature(s, eps, tr, t_air, fast=True)
     else:
         g = int(max(1, min(path_draws, n)))
         state = np.empty((g, 3))
@@ -460,7 +487,8 @@ def monte_carlo_uncertainty(signal, emissivity, reflected_temperature, air_tempe
             cols = np.flatnonzero(group == k)
             m = models(*state[k])
             t_air = state[k, 0] if air_shared else t_air_trial[:, cols]
-            out[:, cols] = _solve_trials(m, s[:, cols], eps[:, cols], tr[:, cols], t_air)
+            with np.errstate(invalid="ignore", divide="ignore"):
+                out[:, cols] = m.object_temperature(s[:, cols], eps[:, cols], tr[:, cols], t_air, fast=True)
     ok = np.isfinite(out)
     mean = np.array([out[i, ok[i]].mean() if ok[i].any() else np.nan for i in range(p)])
     std = np.array([out[i, ok[i]].std(ddof=1) if ok[i].sum() > 1 else np.nan for i in range(p)])

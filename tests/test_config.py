@@ -129,3 +129,19 @@ def test_json_schema_lists_the_keys():
     text = json.dumps(s)
     for key in ("emissivity", "reflected_temperature_c", "spectral_band_um", "frame_chunk"):
         assert key in text
+
+
+@pytest.mark.parametrize("name", ["north/wall", ".hidden", "a\\b"])
+def test_stack_names_that_cannot_name_files_are_rejected(tmp_path, name):
+    """Outputs are named after the stack (<name>.temperature.tif): a name with a path
+    separator or a leading dot would write elsewhere or hide the file."""
+    from irpipe.config import load_config
+    from irpipe.errors import ConfigError
+
+    (tmp_path / "a.tif").write_bytes(b"")          # the path check comes first; any file will do
+    (tmp_path / "s.yaml").write_text(
+        "camera: {spectral_band_um: [7.5, 14.0], calibration: {model: linear, gain: 300.0, offset_counts: 1000.0}}\n"
+        "conditions: {emissivity: 0.9, reflected_temperature_c: 5, air_temperature_c: 5}\n"
+        f"stacks: [{{name: '{name}', path: a.tif}}]\n")
+    with pytest.raises(ConfigError, match="cannot name output files"):
+        load_config(tmp_path / "s.yaml")

@@ -16,7 +16,7 @@ ROOT = Path(__file__).resolve().parent.parent / "irpipe"
 LAYERS = [
     ("base", ["irpipe", "irpipe.constants", "irpipe.errors", "irpipe.defaults", "irpipe.io", "irpipe.config"]),
     ("physics", ["irpipe.radiometry", "irpipe.calibration", "irpipe.atmosphere", "irpipe.humidity",
-                 "irpipe.emissivity", "irpipe.correction", "irpipe.regions", "irpipe.findings",
+                 "irpipe.emissivity", "irpipe.correction", "irpipe.modeltables", "irpipe.regions", "irpipe.findings",
                  "irpipe.uncertainty", "irpipe.fieldmethods", "irpipe.kernel", "irpipe.heatflow",
                  "irpipe.alignment", "irpipe.compare", "irpipe.timeseries", "irpipe.colourtable"]),
     ("prepare", ["irpipe.prepare", "irpipe.context", "irpipe.manifest", "irpipe.fingerprint", "irpipe.heatprep"]),

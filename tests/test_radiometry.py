@@ -92,3 +92,28 @@ def test_inverse_monotonic():
     tab = MonotoneTable(r.band_radiance, 213.15, 923.15)
     s = np.linspace(tab.s_min * 1.0001, tab.s_max * 0.9999, 100001)
     assert np.all(np.diff(tab.inverse(s)) > 0)
+
+
+def test_weighted_transmittance_against_quadrature():
+    # tau_eff(T) = int tau L dlambda / int L dlambda over 8-12 um, with Planck's law written
+    # here from CODATA constants (scipy.constants) and scipy's adaptive quadrature; the
+    # trapezoid sum on the 5 nm grid agrees within 1e-7 (common practice, no source)
+    from scipy.integrate import quad
+
+    def planck_um(lam_um, t):
+        lam = lam_um * 1e-6
+        return 2 * sc.h * sc.c**2 / lam**5 / np.expm1(sc.h * sc.c / (lam * sc.k * t))
+
+    def tau(lam_um):
+        return 0.95 - 0.02 * (lam_um - 8.0)
+
+    r = SpectralResponse.rectangular(8e-6, 12e-6)
+    for t in (250.0, 300.0, 500.0):
+        num = quad(lambda x: tau(x) * planck_um(x, t), 8.0, 12.0, epsabs=0, epsrel=1e-12)[0]
+        den = quad(planck_um, 8.0, 12.0, args=(t,), epsabs=0, epsrel=1e-12)[0]
+        assert r.weighted_transmittance(tau(r.wavelength * 1e6), t) == pytest.approx(num / den, abs=1e-7)
+    # several paths and temperatures at once; a flat 0.7 stays 0.7 (common practice, no source)
+    paths = np.stack([tau(r.wavelength * 1e6), np.full(r.wavelength.size, 0.7)])
+    out = r.weighted_transmittance(paths, np.array([250.0, 300.0, 500.0]))
+    assert out.shape == (2, 3)
+    np.testing.assert_allclose(out[1], 0.7, rtol=0, atol=1e-15)

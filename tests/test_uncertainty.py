@@ -264,3 +264,22 @@ def test_stage_only_with_nonzero_section(tmp_path, linear_camera):
         names = [s.name for s in build_chain(ctxs[0])]   # brief: in the chain only with a non-zero value
         assert ("uncertainty" in names) is expected
         assert names.index("uncertainty") == names.index("radiometric") + 1 if expected else True
+
+
+def test_sensitivity_central_and_one_sided():
+    # JCGM 100:2008 Sect. 5.1.3 allows numerical partial derivatives. Central differences
+    # are exact for a quadratic: d(x^2 y)/dx = 2 x y, d(x^2 y)/dy = x^2 (common practice,
+    # no source)
+    from irpipe.uncertainty import sensitivity
+
+    x0 = {"x": np.array([0.5, 2.0, 3.0]), "y": 4.0}
+
+    def f(x=x0["x"], y=x0["y"]):
+        return x**2 * y
+
+    c = sensitivity(f, x0, {"x": 1e-3, "y": 0.1})
+    np.testing.assert_allclose(c["x"], 2 * x0["x"] * 4.0, rtol=1e-9)
+    np.testing.assert_allclose(c["y"], x0["x"] ** 2, rtol=1e-9)
+    # at a bound the difference is one-sided: [f(0 + h) - f(0)] / h = 1 + h for f = x^2 + x
+    c = sensitivity(lambda x=0.0: x**2 + x, {"x": 0.0}, {"x": 0.01}, bounds={"x": (0.0, 1.0)})
+    assert c["x"] == pytest.approx(1.01, rel=1e-12)

@@ -1,0 +1,221 @@
+"""Tables of the measurement model, computed once and shared by every stack and every
+uncertainty variant that needs them.
+
+A ``MeasurementModel`` (``irpipe.correction``) holds two monotone tables on the dense
+temperature grid T_i of ``radiometry.node_temperatures`` (16384 nodes): the camera
+signal S(T_i) and the signal after the path G(T_i) = S(T_i) tau_eff(T_i), from the band
+integrals
+
+    L(T_i)     = sum_k w_k L_lambda(lambda_k, T_i),
+    L_tau(T_i) = sum_k w_k tau_k L_lambda(lambda_k, T_i),    tau_eff = L_tau / L
+
+(trapezoid weights w_k of the spectral response, Planck's law L_lambda [1]_, spectral
+path transmittance tau_k). Planck's law at (lambda_k, T_i) depends on the response's
+wavelengths and the temperature range only, not on the path, and evaluating it is
+nearly all of a model's cost. So this module keeps, per process:
+
+* ``planck_table(response, t_range)``: L_lambda(lambda_k, T_i) once per wavelength grid
+  and temperature range (``radiometry.PlanckTable``); a new path (distance, humidity,
+  air temperature) then costs one weighted sum over the spectral grid. Least recently
+  used tables are dropped beyond ``PLANCK_CACHE_BYTES`` (a 7.5-14 um band of 1301
+  nodes takes 171 MB); a table larger than that alone is not kept.
+* ``measurement_tables(camera, transmittance, t_range)``: the signal and path tables
+  per (camera, transmittance, range), so stacks with equal conditions share them (the
+  ``MAX_PATH_TABLES`` most recently used, 0.22 MB each: room for the nominal and six
+  perturbed paths of 18 stacks). Signal tables, which do
+  not depend on the path, are shared between paths whenever their samples are equal.
+
+Numbers do not change: a kept table holds the values the same float operations give on
+the same inputs (the same Planck blocks, the same matrix products, the same table
+construction), so a model built from the caches equals, bit for bit, one built without
+them (``disabled()``; tested in ``tests/test_modeltables.py``). Keys are the contents
+(bytes) of the response's wavelengths and weights, the calibration, the range and the
+transmittance, never object identities, so equal conditions hit across runs in one
+process. The state is per process and guarded by a lock (the chain runs stages in
+threads); a forked worker starts with its parent's tables.
+
+References
+----------
+.. [1] M. Planck, "Ueber das Gesetz der Energieverteilung im Normalspectrum",
+   Annalen der Physik 309(3), 553-563 (1901), doi:10.1002/andp.19013090310.
+"""
+from __future__ import annotations
+
+import contextlib
+import hashlib
+import threading
+from collections import OrderedDict
+
+import numpy as np
+
+from .radiometry import MonotoneTable, node_temperatures
+
+PLANCK_CACHE_BYTES = 256 * 2**20   # bound of the kept Planck tables [bytes]
+MAX_PATH_TABLES = 128              # (signal, path) table pairs kept
+MAX_SIGNAL_TABLES = 8              # distinct signal tables kept
+
+_lock = threading.RLock()
+_planck: OrderedDict = OrderedDict()
+_paths: OrderedDict = OrderedDict()
+_signals: OrderedDict = OrderedDict()
+_state = {"enabled": True, "planck_hits": 0, "planck_misses": 0, "path_hits": 0, "path_misses": 0}
+
+
+def _digest(*arrays):
+    """Content key of arrays: dtype, shape and bytes."""
+    h = hashlib.blake2b(digest_size=20)
+    for a in arrays:
+        a = np.ascontiguousarray(a)
+        h.update(f"{a.dtype.str}{a.shape}".encode())
+        h.update(a.data)
+    return h.digest()
+
+
+def _camera_key(camera):
+    r = camera.response
+    return (_digest(r.wavelength, r.weights), camera.kind, tuple(float(v) for v in camera.sh))
+
+
+def planck_table(response, t_range, n=4096):
+    """Planck's law at ``response``'s wavelengths on ``node_temperatures(*t_range, n)``.
+
+    Parameters
+    ----------
+    response : irpipe.radiometry.SpectralResponse
+    t_range : (float, float)
+        Temperature range of the tables [K].
+    n : int
+        Nodes of the inverse table (the grid has 4 n temperatures).
+
+    Returns
+    -------
+    irpipe.radiometry.PlanckTable or None
+        The shared table; None when the caches are disabled or the table alone exceeds
+        ``PLANCK_CACHE_BYTES`` (then band integrals evaluate Planck's law as they go,
+        with the same result).
+    """
+    t0, t1 = float(t_range[0]), float(t_range[1])
+    size = 4 * int(n) * response.wavelength.size * 8
+    if not _state["enabled"] or size > PLANCK_CACHE_BYTES:
+        return None
+    key = (_digest(response.wavelength), t0, t1, int(n))
+    with _lock:
+        table = _planck.get(key)
+        if table is not None:
+            _planck.move_to_end(key)
+            _state["planck_hits"] += 1
+            return table
+        _state["planck_misses"] += 1
+        table = response.planck_table(node_temperatures(t0, t1, n))
+        _planck[key] = table
+        while sum(t.nbytes for t in _planck.values()) > PLANCK_CACHE_BYTES:
+            _planck.popitem(last=False)
+        return table
+
+
+def _signal_table(func, t_range, samples):
+    """The signal table with these samples: one object per distinct sample array."""
+    if not _state["enabled"]:
+        return MonotoneTable(func, *t_range, samples=samples)
+    key = (t_range, _digest(samples))
+    table = _signals.get(key)
+    if table is None:
+        table = MonotoneTable(func, *t_range, samples=samples)
+        _signals[key] = table
+        while len(_signals) > MAX_SIGNAL_TABLES:
+            _signals.popitem(last=False)
+    else:
+        _signals.move_to_end(key)
+    return table
+
+
+def measurement_tables(camera, transmittance, t_range, path_signal):
+    """The signal and path tables of a measurement model, shared by equal conditions.
+
+    Parameters
+    ----------
+    camera : irpipe.correction.CameraModel
+    transmittance : float or ndarray of shape (K,)
+        Flat path transmittance, or spectral values at ``camera.response.wavelength``.
+    t_range : (float, float)
+        Temperature range of the tables [K].
+    path_signal : callable
+        Exact G(T) of the model (kept as the path table's ``func``).
+
+    Returns
+    -------
+    signal_table, path_table : irpipe.radiometry.MonotoneTable
+        S(T) and G(T) = S(T) tau_eff(T) sampled on the table nodes.
+
+    Raises
+    ------
+    ValueError
+        If S or G is not positive and strictly increasing over the range.
+
+    Notes
+    -----
+    One set of Planck evaluations on the nodes (``planck_table``) serves both tables:
+    S = L and tau_eff = L_tau / L for a band camera; S is the Sakuma-Hattori signal
+    otherwise. A flat transmittance gives G = S tau.
+    """
+    t_range = (float(t_range[0]), float(t_range[1]))
+    tau = np.asarray(transmittance, dtype=float)
+    with _lock:
+        key = (_camera_key(camera), t_range, _digest(tau)) if _state["enabled"] else None
+        if key is not None and key in _paths:
+            _paths.move_to_end(key)
+            _state["path_hits"] += 1
+            return _paths[key]
+        _state["path_misses"] += 1
+        t_nodes = node_temperatures(*t_range)
+        r = camera.response
+        band = camera.kind == "band"
+        if tau.ndim == 0:
+            if band:
+                pt = planck_table(r, t_range)
+                s_nodes = r.band_radiance(t_nodes if pt is None else pt)
+            else:
+                s_nodes = camera.signal(t_nodes)
+            g_nodes = s_nodes * float(tau)
+        else:
+            pt = planck_table(r, t_range)
+            l_plain, l_tau = r.band_radiances(t_nodes if pt is None else pt, [None, tau])
+            s_nodes = l_plain if band else camera.signal(t_nodes)
+            g_nodes = s_nodes * (l_tau / l_plain)
+        tables = (_signal_table(camera.signal, t_range, s_nodes),
+                  MonotoneTable(path_signal, *t_range, samples=g_nodes))
+        if key is not None:
+            _paths[key] = tables
+            while len(_paths) > MAX_PATH_TABLES:
+                _paths.popitem(last=False)
+        return tables
+
+
+def cache_info():
+    """Entries, bytes and hit counts of the shared tables (for benchmarks and tests)."""
+    with _lock:
+        return {"planck_tables": len(_planck), "planck_bytes": sum(t.nbytes for t in _planck.values()),
+                "path_tables": len(_paths), "signal_tables": len(_signals),
+                **{k: v for k, v in _state.items() if k != "enabled"}}
+
+
+def clear():
+    """Drop every kept table and reset the counters."""
+    with _lock:
+        _planck.clear()
+        _paths.clear()
+        _signals.clear()
+        _state.update(planck_hits=0, planck_misses=0, path_hits=0, path_misses=0)
+
+
+@contextlib.contextmanager
+def disabled():
+    """Build tables without the caches inside the block (reference for tests and benchmarks)."""
+    with _lock:
+        before = _state["enabled"]
+        _state["enabled"] = False
+    try:
+        yield
+    finally:
+        with _lock:
+            _state["enabled"] = before
