@@ -515,7 +515,7 @@ SPOTS = Mapping(keys={
 STACK_CAMERA = Mapping(keys={k: replace(n, default=None) for k, n in CAMERA.keys.items()},
                        help="per-stack camera overrides, key by key (e.g. one stack exported as apparent temperature)")
 
-# --- alignment and comparison (issue 12) ---------------------------------------------------
+# --- alignment and comparison ---------------------------------------------------
 
 _POINT = Pair(item=Number(), ordered=False, help="[row, col]")
 POINT_PAIRS = ListOf(item=ListOf(item=_POINT, min_items=2), min_items=2,

@@ -27,7 +27,7 @@ class Chunk:
     invalid_counts: dict | None = None
     #: per-frame reflected temperature of the reflector method [K], shape (n,), or None
     reflected_temperature_k: np.ndarray | None = None
-    #: issue 12, align stage: signal resampled onto the reference frame's grid, float64
+    #: align stage: signal resampled onto the reference frame's grid, float64
     #: (n, M, N), NaN where invalid, and its reason codes (uint8, ``correction.REASONS`` and
     #: ``alignment.ALIGN_REASONS``); the radiometric stage takes these instead of ``raw``
     aligned_signal: np.ndarray | None = None
@@ -105,7 +105,6 @@ class StackContext:
     reflected_series_k: list = field(default_factory=list)   # reflector method, per frame (radiometric)
     region_uncertainty: dict = field(default_factory=dict)   # region -> figures (uncertainty)
     picture: Picture | None = None     # (picture)
-    # issue 12
     alignment: Any = None              # list of per-frame alignment.Similarity, None = rejected (align)
     temporal: dict | None = None       # mean frame, noise, time, air temperatures (temporal)
     comparison_picture: dict | None = None    # difference_k, checkerboard_c images (compare)

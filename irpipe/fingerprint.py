@@ -64,6 +64,6 @@ def pixel_fingerprint(cfg, i, input_hashes: dict) -> str:
     d = {"camera": merged_camera(cfg.data, i), "conditions": merged_conditions(cfg.data, i),
          "pixel_regions": regions, "path": st["path"].name,
          "uncertainty": cfg.data.get("uncertainty", {}), "inputs": inputs, "version": __version__}
-    if st.get("align"):     # issue 12: aligned pixels depend on the alignment settings
+    if st.get("align"):     # aligned pixels depend on the alignment settings
         d["align"] = st["align"]
     return _digest(d)

@@ -134,7 +134,7 @@ def build_tables(*, input, calibration, model, air_temperature_k, reflected_temp
     reflector_emissivity : float
     per_pixel : bool
         Use the per-pixel plan even where the lookup plan applies (aligned stacks, whose
-        signal arrives resampled: issue 12).
+        signal arrives resampled by the align stage).
     """
     dtype = np.dtype(dtype)
     if saturation is None and np.issubdtype(dtype, np.integer):
@@ -281,7 +281,7 @@ def _correct_per_pixel(raw, t: PixelTables, want_signal, where):
 
 def correct_signal(s, reason, t: PixelTables, *, want_signal=False, where="stack") -> KernelResult:
     """The per-pixel plan from an already linearised signal and its reason codes (the
-    align stage's resampled signal, issue 12); ``correct`` = ``linearise`` + this.
+    align stage's resampled signal); ``correct`` = ``linearise`` + this.
     Reason codes beyond ``REASONS`` (alignment) stay invalid and are not counted here."""
     refl_series = None
     if t.reflected_temperature_k is None:

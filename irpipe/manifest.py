@@ -24,7 +24,7 @@ def stack_fingerprint(cfg: Config, i: int, input_hashes: dict) -> str:
          "uncertainty": cfg.data.get("uncertainty", {}), "inputs": input_hashes,
          "version": __version__}
     base = (st.get("compare") or {}).get("baseline")
-    if isinstance(base, str):       # issue 12: a comparison's outputs depend on its baseline's
+    if isinstance(base, str):       # a comparison's outputs depend on its baseline's
         j = [s["name"] for s in cfg.data["stacks"]].index(base)
         d["baseline"] = stack_fingerprint(cfg, j, hash_files(stack_inputs(cfg, j)))
     blob = json.dumps(d, sort_keys=True, default=str)

@@ -83,7 +83,7 @@ def pixel_block(raw, frames=None, *, tables, bad_pixel_mask=None, want_signal=Fa
     raw = np.array(raw, copy=True, order="C")
     if bad_pixel_mask is not None:
         BadPixelFiller(bad_pixel_mask).fill(raw)
-    if align is not None:           # issue 12: the align stage's resampling, then the per-pixel plan
+    if align is not None:           # the align stage's resampling, then the per-pixel plan
         s, code = align.resample_chunk(raw, frames)
         res = correct_signal(s, code, tables, want_signal=want_signal)
         side = np.zeros((raw.shape[0], len(CODES) + 1 + len(ALIGN_REASONS)))
@@ -113,7 +113,7 @@ def lazy_temperature(raw, tables, bad_pixel_mask=None, want_signal=False, want_i
         out_dims.append(["row", "col"])
         dtypes.append(np.float64 if want_signal else np.int32)
     args, core = [raw], [["row", "col"]]
-    if align is not None:           # issue 12: the frame numbers travel with the chunks
+    if align is not None:           # the frame numbers travel with the chunks
         import dask.array as da
         args.append(xr.DataArray(da.from_array(np.arange(raw.shape[0]), chunks=(raw.data.chunks[0],)),
                                  dims=("frame",)))
@@ -154,7 +154,7 @@ def cluster_chunks(ctx, client, rad, align=None):
         refl = side[:, len(CODES)]
         inv = {c: int(side[:, j].sum()) for j, c in enumerate(CODES)}
         extra = {}
-        if align is not None:       # issue 12: the align stage's reasons, counted on the workers
+        if align is not None:       # the align stage's reasons, counted on the workers
             extra = {c: int(side[:, len(CODES) + 1 + j].sum()) for j, c in enumerate(ALIGN_REASONS)}
             for c, n in extra.items():
                 align.counts[ALIGN_REASONS[c]] += n
@@ -192,7 +192,7 @@ def run_stack_distributed(ctx, chain, progress=None):
                                    processes=bool(ctx.options.get("processes", True)),
                                    dashboard_address=None)
             client = Client(cluster, set_as_default=False)
-        align = next((s for s in chain if s.name == "align"), None)     # issue 12
+        align = next((s for s in chain if s.name == "align"), None)
         run_chain(chain, ctx, lambda: cluster_chunks(ctx, client, rad, align), progress,
                   skip=("bad_pixels", "align", "radiometric"))
     finally:

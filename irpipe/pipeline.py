@@ -102,7 +102,7 @@ def _report_picture(ctx, out_dir, outputs):
     if pic is None:
         return None
     pic = {**pic, "masks": dict(ctx.masks)}
-    if ctx.comparison_picture is not None:    # issue 12
+    if ctx.comparison_picture is not None:
         pic["compare"] = ctx.comparison_picture
     if (outputs or {}).get("u_value"):      # heat flow: the U map for the report
         from .io import read_u_value_map
@@ -254,7 +254,7 @@ def run(config_path, out_dir=None, *, resume=False, keep_going=False, quiet=True
     n_run = sum(1 for k, _, _ in todo if k == "run")
     jobs = max(1, int(jobs or 1))
     if any(isinstance((st.get("compare") or {}).get("baseline"), str) for st in cfg.data["stacks"]):
-        # issue 12: a comparison reads its baseline's mean frame from this run, so the stacks
+        # a comparison reads its baseline's mean frame from this run, so the stacks
         # of such a survey run one after another (whole-stack jobs would race)
         jobs, scheduler_jobs = 1, False
     else:

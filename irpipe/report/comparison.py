@@ -1,4 +1,4 @@
-"""Report section for frame alignment and stack comparison (issue 12), kept apart from the
+"""Report section for frame alignment and stack comparison, kept apart from the
 general picture rendering: the difference picture on a diverging colour scale centred on
 zero with the numbered findings, a checkerboard of the two aligned states, both stacks with
 their times and the shift found, and the alignment of the stack's own frames.

@@ -390,7 +390,7 @@ def _stack_section(k, st, picture, findings, fig_no):
         from .heatflow import section
         hf_html, fig_no = section(st, picture, fig_no)
         out.append(hf_html)
-    if st.get("alignment") or st.get("compare"):     # issue 12: own section (irpipe/report/comparison.py)
+    if st.get("alignment") or st.get("compare"):     # own section (irpipe/report/comparison.py)
         from .comparison import comparison_section
         sec, fig_no = comparison_section(st, picture, mine, fig_no)
         out.append(sec)

@@ -14,8 +14,7 @@ import math
 KIND_ORDER = ("electrical", "envelope", "hot", "cold")
 KIND_LABEL = {"electrical": "electrical component", "envelope": "envelope surface",
               "hot": "hot spot", "cold": "cold spot",
-              "colder": "colder than baseline", "warmer": "warmer than baseline"}   # issue 12
-
+              "colder": "colder than baseline", "warmer": "warmer than baseline"}
 FINDING_COLUMNS = ("number", "stack", "kind", "region", "frame", "row", "col", "peak_c", "mean_c",
                    "area_px", "delta_k", "reference", "severity", "priority", "detail")
 

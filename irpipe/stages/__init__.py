@@ -25,10 +25,9 @@ def registry():
     from .spots import SpotStage
     from .uncertainty import UncertaintyStage
     from .writer import TemperatureWriterStage
-    from .align import AlignStage            # issue 12
-    from .compare import CompareStage        # issue 12
-    from .temporal import TemporalStage      # issue 12
-
+    from .align import AlignStage
+    from .compare import CompareStage
+    from .temporal import TemporalStage
     return [BadPixelStage, AlignStage, RadiometricStage, UncertaintyStage, RegionStatsStage, HeatFlowStage,
             SpotStage, PictureStage, TemporalStage, CompareStage, EnvelopeStage, ElectricalStage,
             DatasetWriterStage, TemperatureWriterStage]

@@ -1,7 +1,7 @@
 """Align stage: every frame registered to the reference frame and resampled onto its grid,
 in the signal domain, between the sensor corrections and the measurement equation.
 
-Order of operations (issue 12): the bad-pixel stage has filled detector pixels in the raw
+Order of operations: the bad-pixel stage has filled detector pixels in the raw
 data; here each frame is linearised exactly as the radiometric stage would (NUC maps,
 calibration or apparent-temperature input, the same reason codes: the radiometric stage's
 own ``signal`` function), registered against the reference frame (``irpipe.alignment``),

@@ -28,7 +28,7 @@ from ..io import StackWriter, write_tiff_atomic
 from ..uncertainty import sensitivity
 from .base import Stage
 
-U_WARN_RELATIVE = 0.30          # warn above 30 % relative expanded uncertainty (issue 11)
+U_WARN_RELATIVE = 0.30          # warn above 30 % relative expanded uncertainty
 HC_RELATIVE_UNCERTAINTY = 0.30  # default u(h_c): inside h_c from natural-convection correlations
 # spreads over roughly 1.5-4 W/(m2 K) for walls (from memory), so 30 % of h_c at k = 1
 AIR_SENSOR_K = 0.29             # default: +-0.5 K logger tolerance as a rectangular distribution

@@ -24,7 +24,7 @@ def stack_tables(ctx):
                         emissivity_field=ctx.emissivity, shape=ctx.shape[1:],
                         saturation=ctx.camera_cfg.get("saturation"), nuc=ctx.nuc,
                         reflector_mask=ctx.reflector_mask, reflector_emissivity=ctx.reflector_emissivity,
-                        per_pixel=ctx.alignment is not None)    # issue 12: aligned stacks
+                        per_pixel=ctx.alignment is not None)    # aligned stacks
 
 
 class RadiometricStage(Stage):
@@ -48,7 +48,7 @@ class RadiometricStage(Stage):
             ctx.lookup_counts = np.zeros(self.tables.lut_c.shape, np.int64)
 
     def process(self, chunk, ctx):
-        if chunk.aligned_signal is not None:     # issue 12: linearised and resampled by the align stage
+        if chunk.aligned_signal is not None:     # linearised and resampled by the align stage
             res = correct_signal(chunk.aligned_signal, chunk.aligned_reason, self.tables,
                                  want_signal=self.want_signal, where=ctx.name)
             self.add_result(chunk, res, ctx)
