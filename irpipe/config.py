@@ -515,6 +515,49 @@ SPOTS = Mapping(keys={
 STACK_CAMERA = Mapping(keys={k: replace(n, default=None) for k, n in CAMERA.keys.items()},
                        help="per-stack camera overrides, key by key (e.g. one stack exported as apparent temperature)")
 
+# --- alignment and comparison ---------------------------------------------------
+
+_POINT = Pair(item=Number(), ordered=False, help="[row, col]")
+POINT_PAIRS = ListOf(item=ListOf(item=_POINT, min_items=2), min_items=2,
+                     help="[[[row, col] in the reference, [row, col] in the frame], ...]: similarity from point pairs")
+
+ALIGN_SPEC = Mapping(keys={
+    "reference_frame": Number(lo=0, integer=True, default=0, help="frame whose geometry regions and maps are drawn in"),
+    "max_shift_px": Number(lo=0.0, lo_open=True, default=20.0,
+                           help="frames displaced further than this are rejected (reported, left out of statistics)"),
+    "min_peak_ratio": Number(lo=1.0, default=3.0,
+                             help="frames whose correlation peak ratio is lower are rejected as failed registrations"),
+    "transform": String(choices=("translation", "similarity"), default="translation",
+                        help="translation (sub-pixel) or similarity (rotation + scale + translation)"),
+    "points": POINT_PAIRS,
+}, help="align every frame to a reference frame")
+
+ALIGN = OneOf(options=(
+    (lambda v: isinstance(v, bool), Bool(), "true/false"),
+    (lambda v: isinstance(v, dict) or v is None, ALIGN_SPEC, "mapping"),
+), expected="true, false or {reference_frame, max_shift_px, min_peak_ratio, transform, points}",
+    help="frame alignment: true for the defaults, or {reference_frame: 0, max_shift_px: 20, ...}")
+
+BASELINE = OneOf(options=(
+    (lambda v: isinstance(v, str), String(help="name of an earlier stack of this config"), "stack name"),
+    (lambda v: isinstance(v, dict), Mapping(keys={
+        "survey": FilePath(help="another survey's config (its written outputs are read)"),
+        "stack": String(help="stack name in that survey")}, required=("survey", "stack")), "other survey"),
+), expected="an earlier stack's name or {survey: path/to/survey.yaml, stack: name}",
+    help="the stack to compare with")
+
+COMPARE = Mapping(keys={
+    "baseline": BASELINE,
+    "below_k": Number(lo=0.0, lo_open=True, help="colder findings: difference at or below -below_k [K] "
+                                                  "(default 1.5 when neither threshold is given)"),
+    "above_k": Number(lo=0.0, lo_open=True, help="warmer findings: difference at or above above_k [K]"),
+    "min_area_px": Number(lo=1, integer=True, default=6, help="smallest finding [pixels]"),
+    "offset": String(default="median", help="global offset removed before thresholding: median, none or a region name"),
+    "pressure_difference_pa": Number(help="pressure difference across the envelope during this stack [Pa] (recorded)"),
+    "registration": String(choices=("translation", "similarity"), default="translation",
+                           help="how the baseline's mean frame is registered to this stack's"),
+    "points": POINT_PAIRS,
+}, required=("baseline",), help="difference with a baseline stack (differential thermography)")
 class _RegionNumbers(Node):
     """A number, or {region name: number, ..., default: number}."""
 
@@ -621,6 +664,9 @@ STACK = Mapping(keys={
     "assessment": String(choices=("envelope", "electrical", "general"), default="general"),
     "load_pct": Number(lo=0.0, lo_open=True, hi=200.0, help="electrical: load during the survey, % of rating"),
     "ambient_c": Celsius(help="electrical: ambient air near the equipment [C]"),
+    "time": String(help="when the stack was taken (free text, shown in comparisons; default: frame_times.start)"),
+    "align": ALIGN,
+    "compare": COMPARE,
     "frame_times": FRAME_TIMES,
     "heat_flow": HEAT_FLOW,
 }, required=("name", "path"), help="one thermal stack")
@@ -663,6 +709,8 @@ SCHEMA = Mapping(keys={
         "formats": ListOf(item=String(choices=("tiff", "netcdf", "zarr")), default=["tiff"]),
         "report": Bool(default=True),
         "frame_chunk": Number(lo=1, integer=True, default=FRAME_CHUNK),
+        "products": ListOf(item=String(choices=("mean", "std")),
+                           help="temporal products after alignment: <name>.mean.tif, <name>.std.tif"),
         "fsync": Bool(default=False, help="force temperature stacks to disk before renaming them into place "
                                          "(survives a power loss; slower). Reports are always synced."),
     }, fill_empty=True),
@@ -790,6 +838,7 @@ def _cross_checks(cfg: Config):
             if ref is not None and ref not in rnames:
                 cfg.fail(["stacks", i, "regions", j, "reference"],
                          f"'{ref}' is not a region of this stack; regions: {', '.join(sorted(rnames)) or 'none'}")
+        _check_align_compare(cfg, i, st, rnames, [x["name"] for x in d["stacks"]])
         cond = merged_conditions(d, i)
         refl = cond.get("reflected_temperature_c")
         if isinstance(refl, dict) and refl["reflector"] not in rnames:
@@ -886,6 +935,47 @@ def _check_heat_flow(cfg, i, st, rnames, cond):
     if hf.get("side") == "outside" and "radiant_temperature_c" not in hf and not has_log:
         cfg.fail(key + ["heat_flow"], "side outside needs heat_flow.radiant_temperature_c (sky and ground) "
                                       "or a radiant_temperature_c column in survey.air_log")
+
+
+def align_spec(stack: dict):
+    """The stack's ``align`` section with defaults filled in, or None without alignment."""
+    a = stack.get("align")
+    if not a:
+        return None
+    if a is True:
+        a = {}
+    return {"reference_frame": 0, "max_shift_px": 20.0, "min_peak_ratio": 3.0, "transform": "translation", **a}
+
+
+def _check_align_compare(cfg, i, st, rnames, names):
+    for key in ("align", "compare"):
+        sec = st.get(key)
+        for k, pair in enumerate((sec or {}).get("points", []) if isinstance(sec, dict) else []):
+            if len(pair) != 2:
+                cfg.fail(["stacks", i, key, "points", k], "expected a pair [[row, col] in the reference, [row, col] "
+                                                         "in the frame]")
+    a = st.get("align")
+    if isinstance(a, dict) and a.get("points") and a.get("transform") == "similarity":
+        cfg.fail(["stacks", i, "align"], "give either points (the transform is fitted to them) or "
+                                         "transform: similarity, not both")
+    c = st.get("compare")
+    if not c:
+        return
+    b = c["baseline"]
+    if isinstance(b, str):
+        if b == st["name"]:
+            cfg.fail(["stacks", i, "compare", "baseline"], f"stack '{b}' cannot be its own baseline")
+        if b not in names:
+            cfg.fail(["stacks", i, "compare", "baseline"],
+                     f"no stack named '{b}'; stacks: {', '.join(names)}")
+        if names.index(b) > i:
+            cfg.fail(["stacks", i, "compare", "baseline"],
+                     f"stack '{b}' comes later in the config (stacks[{names.index(b)}]); a baseline must be "
+                     "an earlier stack: move it before this one")
+    off = c.get("offset", "median")
+    if off not in ("median", "none") and off not in rnames:
+        cfg.fail(["stacks", i, "compare", "offset"],
+                 f"'{off}' is neither median, none nor a region of this stack; regions: {', '.join(sorted(rnames)) or 'none'}")
 
 
 def merged_conditions(data: dict, index: int) -> dict:

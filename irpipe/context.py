@@ -27,6 +27,11 @@ class Chunk:
     invalid_counts: dict | None = None
     #: per-frame reflected temperature of the reflector method [K], shape (n,), or None
     reflected_temperature_k: np.ndarray | None = None
+    #: align stage: signal resampled onto the reference frame's grid, float64
+    #: (n, M, N), NaN where invalid, and its reason codes (uint8, ``correction.REASONS`` and
+    #: ``alignment.ALIGN_REASONS``); the radiometric stage takes these instead of ``raw``
+    aligned_signal: np.ndarray | None = None
+    aligned_reason: np.ndarray | None = None
 
     @property
     def n(self):
@@ -100,6 +105,9 @@ class StackContext:
     reflected_series_k: list = field(default_factory=list)   # reflector method, per frame (radiometric)
     region_uncertainty: dict = field(default_factory=dict)   # region -> figures (uncertainty)
     picture: Picture | None = None     # (picture)
+    alignment: Any = None              # list of per-frame alignment.Similarity, None = rejected (align)
+    temporal: dict | None = None       # mean frame, noise, time, air temperatures (temporal)
+    comparison_picture: dict | None = None    # difference_k, checkerboard_c images (compare)
     u_value_map: np.ndarray | None = None   # (M, N) float32 in-situ U [W/(m2 K)] (heat_flow)
 
 

@@ -61,6 +61,9 @@ def pixel_fingerprint(cfg, i, input_hashes: dict) -> str:
     regions = [r for r in st.get("regions", []) if r["name"] in keep]
     other_masks = {str(r["mask"]) for r in st.get("regions", []) if "mask" in r and r["name"] not in keep}
     inputs = {k: v for k, v in input_hashes.items() if k not in other_masks}
-    return _digest({"camera": merged_camera(cfg.data, i), "conditions": merged_conditions(cfg.data, i),
-                    "pixel_regions": regions, "path": st["path"].name,
-                    "uncertainty": cfg.data.get("uncertainty", {}), "inputs": inputs, "version": __version__})
+    d = {"camera": merged_camera(cfg.data, i), "conditions": merged_conditions(cfg.data, i),
+         "pixel_regions": regions, "path": st["path"].name,
+         "uncertainty": cfg.data.get("uncertainty", {}), "inputs": inputs, "version": __version__}
+    if st.get("align"):     # aligned pixels depend on the alignment settings
+        d["align"] = st["align"]
+    return _digest(d)

@@ -568,17 +568,19 @@ def u_value_uncertainty_gum(series, u, side="inside", eps_h_ratio=None):
     keys = ["surface", "emissivity", "radiant", "h_c", "indoor_air", "outdoor_air"]
     if eps_h_ratio is None:
         keys.append("eps_h")
-    for k in keys:
-        uk = u.get(k, 0.0)
-        if not uk:
-            continue
-        h = uk * 1e-2
-        ep = {k: np.array([h])}
-        em = {k: np.array([-h])}
+    from .uncertainty import sensitivity
+
+    def moved(**kw):                 # U with one input moved by the given deviation
+        (k, dev), = kw.items()
+        d = {k: np.array([dev])}
         if k == "emissivity" and eps_h_ratio is not None:
-            ep["eps_h"], em["eps_h"] = eps_h_ratio * ep[k], eps_h_ratio * em[k]
-        c = (float(region_u(series, ep, side)[0]) - float(region_u(series, em, side)[0])) / (2 * h)
-        budget[k] = abs(c) * uk
+            d["eps_h"] = eps_h_ratio * d[k]
+        return float(region_u(series, d, side)[0])
+
+    active = [k for k in keys if u.get(k, 0.0)]
+    coef = sensitivity(moved, {k: 0.0 for k in active}, {k: u[k] * 1e-2 for k in active})
+    for k in active:
+        budget[k] = abs(coef[k]) * u[k]
     uc = math.sqrt(sum(v * v for v in budget.values()))
     return {"u": nominal, "standard_uncertainty": uc, "expanded_uncertainty": 2.0 * uc, "budget": budget}
 

@@ -113,7 +113,7 @@ def lookup_plan_possible(dtype, nuc, emissivity_field, reflected_temperature_k) 
 
 def build_tables(*, input, calibration, model, air_temperature_k, reflected_temperature_k, dtype,
                  emissivity_field, shape, saturation=None, nuc=None, reflector_mask=None,
-                 reflector_emissivity=0.0) -> PixelTables:
+                 reflector_emissivity=0.0, per_pixel=False) -> PixelTables:
     """The frozen tables of one stack.
 
     Parameters
@@ -132,6 +132,9 @@ def build_tables(*, input, calibration, model, air_temperature_k, reflected_temp
     nuc : (gain, offset) maps, optional
     reflector_mask : flat bool array, optional
     reflector_emissivity : float
+    per_pixel : bool
+        Use the per-pixel plan even where the lookup plan applies (aligned stacks, whose
+        signal arrives resampled by the align stage).
     """
     dtype = np.dtype(dtype)
     if saturation is None and np.issubdtype(dtype, np.integer):
@@ -141,7 +144,7 @@ def build_tables(*, input, calibration, model, air_temperature_k, reflected_temp
                   reflected_temperature_k=None if reflected_temperature_k is None else float(reflected_temperature_k),
                   saturation=saturation, nuc=nuc, reflector_mask=reflector_mask,
                   reflector_emissivity=float(reflector_emissivity or 0.0))
-    if not lookup_plan_possible(dtype, nuc, emissivity_field, reflected_temperature_k):
+    if per_pixel or not lookup_plan_possible(dtype, nuc, emissivity_field, reflected_temperature_k):
         return PixelTables(emissivity=emissivity_field.as_array(shape), **common)
     probe = PixelTables(**common)
     info = np.iinfo(dtype)
@@ -273,6 +276,13 @@ def _correct_lookup(raw, t: PixelTables, want_index, count, window):
 
 def _correct_per_pixel(raw, t: PixelTables, want_signal, where):
     s, reason = linearise(raw, t)
+    return correct_signal(s, reason, t, want_signal=want_signal, where=where)
+
+
+def correct_signal(s, reason, t: PixelTables, *, want_signal=False, where="stack") -> KernelResult:
+    """The per-pixel plan from an already linearised signal and its reason codes (the
+    align stage's resampled signal); ``correct`` = ``linearise`` + this.
+    Reason codes beyond ``REASONS`` (alignment) stay invalid and are not counted here."""
     refl_series = None
     if t.reflected_temperature_k is None:
         refl_series = reflector_temperature(s, reason, t, where)

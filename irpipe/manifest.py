@@ -19,10 +19,15 @@ def stack_fingerprint(cfg: Config, i: int, input_hashes: dict) -> str:
     conditions, its own section, the survey and uncertainty sections, the input files'
     hashes and the software version."""
     st = cfg.data["stacks"][i]
-    blob = json.dumps({"camera": merged_camera(cfg.data, i), "conditions": merged_conditions(cfg.data, i),
-                       "stack": st, "survey": cfg.data.get("survey", {}),
-                       "uncertainty": cfg.data.get("uncertainty", {}), "inputs": input_hashes,
-                       "version": __version__}, sort_keys=True, default=str)
+    d = {"camera": merged_camera(cfg.data, i), "conditions": merged_conditions(cfg.data, i),
+         "stack": st, "survey": cfg.data.get("survey", {}),
+         "uncertainty": cfg.data.get("uncertainty", {}), "inputs": input_hashes,
+         "version": __version__}
+    base = (st.get("compare") or {}).get("baseline")
+    if isinstance(base, str):       # a comparison's outputs depend on its baseline's
+        j = [s["name"] for s in cfg.data["stacks"]].index(base)
+        d["baseline"] = stack_fingerprint(cfg, j, hash_files(stack_inputs(cfg, j)))
+    blob = json.dumps(d, sort_keys=True, default=str)
     return hashlib.sha256(blob.encode()).hexdigest()
 
 

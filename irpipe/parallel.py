@@ -21,7 +21,8 @@ import numpy as np
 from .calibration import BadPixelFiller
 from .correction import REASONS
 from .errors import InputDataError
-from .kernel import correct
+from .alignment import ALIGN_REASONS
+from .kernel import correct, correct_signal
 from .runner import run_chain
 from .stages.base import Chunk
 from .stages.radiometric import RadiometricStage
@@ -71,7 +72,7 @@ def lazy_stack(path, shape, dtype, frame_chunk, label="stack"):
                         attrs={"source": Path(path).name})
 
 
-def pixel_block(raw, tables, bad_pixel_mask=None, want_signal=False, want_index=False):
+def pixel_block(raw, frames=None, *, tables, bad_pixel_mask=None, want_signal=False, want_index=False, align=None):
     """The pixel kernel on one block of raw frames (runs on a worker).
 
     Returns ``(temperature_c, side[, aux])``: temperature (F, M, N) float32; ``side``
@@ -82,18 +83,24 @@ def pixel_block(raw, tables, bad_pixel_mask=None, want_signal=False, want_index=
     raw = np.array(raw, copy=True, order="C")
     if bad_pixel_mask is not None:
         BadPixelFiller(bad_pixel_mask).fill(raw)
-    res = correct(raw, tables, want_signal=want_signal, want_index=want_index)
-    side = np.zeros((raw.shape[0], len(CODES) + 1))
-    side[:, -1] = np.nan
+    if align is not None:           # the align stage's resampling, then the per-pixel plan
+        s, code = align.resample_chunk(raw, frames)
+        res = correct_signal(s, code, tables, want_signal=want_signal)
+        side = np.zeros((raw.shape[0], len(CODES) + 1 + len(ALIGN_REASONS)))
+        side[0, len(CODES) + 1:] = [np.count_nonzero(code == c) for c in ALIGN_REASONS]
+    else:
+        res = correct(raw, tables, want_signal=want_signal, want_index=want_index)
+        side = np.zeros((raw.shape[0], len(CODES) + 1))
+    side[:, len(CODES)] = np.nan
     side[0, :len(CODES)] = [res.invalid_counts[c] for c in CODES]
     if res.reflected_temperature_k is not None:
-        side[:, -1] = res.reflected_temperature_k
+        side[:, len(CODES)] = res.reflected_temperature_k
     if want_signal or want_index:
         return res.temperature_c, side, (res.signal if want_signal else res.lookup_index)
     return res.temperature_c, side
 
 
-def lazy_temperature(raw, tables, bad_pixel_mask=None, want_signal=False, want_index=False):
+def lazy_temperature(raw, tables, bad_pixel_mask=None, want_signal=False, want_index=False, align=None):
     """Map ``pixel_block`` over the chunks of ``raw`` (from ``lazy_stack``) with
     ``xarray.apply_ufunc(..., dask="parallelized")``; returns the lazy outputs as
     DataArrays ``(temperature_c, side[, aux])``. Nothing is computed."""
@@ -105,17 +112,25 @@ def lazy_temperature(raw, tables, bad_pixel_mask=None, want_signal=False, want_i
     if aux:
         out_dims.append(["row", "col"])
         dtypes.append(np.float64 if want_signal else np.int32)
-    res = xr.apply_ufunc(pixel_block, raw, kwargs={"tables": tables, "bad_pixel_mask": bad_pixel_mask,
-                                                   "want_signal": want_signal, "want_index": want_index},
-                         input_core_dims=[["row", "col"]], output_core_dims=out_dims,
+    args, core = [raw], [["row", "col"]]
+    if align is not None:           # the frame numbers travel with the chunks
+        import dask.array as da
+        args.append(xr.DataArray(da.from_array(np.arange(raw.shape[0]), chunks=(raw.data.chunks[0],)),
+                                 dims=("frame",)))
+        core.append([])
+    n_side = len(CODES) + 1 + (len(ALIGN_REASONS) if align is not None else 0)
+    res = xr.apply_ufunc(pixel_block, *args, kwargs={"tables": tables, "bad_pixel_mask": bad_pixel_mask,
+                                                     "want_signal": want_signal, "want_index": want_index,
+                                                     "align": align},
+                         input_core_dims=core, output_core_dims=out_dims,
                          dask="parallelized", output_dtypes=dtypes,
-                         dask_gufunc_kwargs={"output_sizes": {"side": len(CODES) + 1}})
+                         dask_gufunc_kwargs={"output_sizes": {"side": n_side}})
     t = res[0].rename("temperature")
     t.attrs.update(units="degC", long_name="surface temperature", standard_name="surface_temperature")
     return (t,) + tuple(res[1:])
 
 
-def cluster_chunks(ctx, client, rad):
+def cluster_chunks(ctx, client, rad, align=None):
     """Chunk source for ``run_chain``: the stack's chunks with their pixel work done on the
     cluster, in frame order, a few chunks ahead being computed meanwhile."""
     size = ctx.frame_chunk
@@ -125,7 +140,7 @@ def cluster_chunks(ctx, client, rad):
     # the client sees temperatures, not the table counts: the picture stage bins them
     ctx.lookup_counts = None
     raw = lazy_stack(ctx.stack["path"], ctx.shape, ctx.dtype, size, label=f"stack '{ctx.name}'")
-    outs = lazy_temperature(raw, tables, ctx.bad_pixel_mask, want_signal, want_index)
+    outs = lazy_temperature(raw, tables, ctx.bad_pixel_mask, want_signal, want_index, align)
     blocks = [o.data.to_delayed().reshape(-1) for o in outs]
     ahead = max(2, 2 * len(client.nthreads() or {0: 1}))
     pending = {}
@@ -136,8 +151,13 @@ def cluster_chunks(ctx, client, rad):
         res = [f.result() for f in pending.pop(k)]
         t, side = res[0], res[1]
         chunk = Chunk(k * size, None)
-        refl = side[:, -1]
+        refl = side[:, len(CODES)]
         inv = {c: int(side[:, j].sum()) for j, c in enumerate(CODES)}
+        extra = {}
+        if align is not None:       # the align stage's reasons, counted on the workers
+            extra = {c: int(side[:, len(CODES) + 1 + j].sum()) for j, c in enumerate(ALIGN_REASONS)}
+            for c, n in extra.items():
+                align.counts[ALIGN_REASONS[c]] += n
 
         class _Result:          # the kernel result as the radiometric stage takes it
             temperature_c, invalid_counts, value_counts = t, inv, None
@@ -146,6 +166,8 @@ def cluster_chunks(ctx, client, rad):
             reflected_temperature_k = refl.copy() if np.isfinite(refl).any() else None
 
         rad.add_result(chunk, _Result, ctx)
+        if extra:
+            chunk.invalid_counts = {**inv, **extra}
         yield chunk
 
 
@@ -170,8 +192,9 @@ def run_stack_distributed(ctx, chain, progress=None):
                                    processes=bool(ctx.options.get("processes", True)),
                                    dashboard_address=None)
             client = Client(cluster, set_as_default=False)
-        run_chain(chain, ctx, lambda: cluster_chunks(ctx, client, rad), progress,
-                  skip=("bad_pixels", "radiometric"))
+        align = next((s for s in chain if s.name == "align"), None)
+        run_chain(chain, ctx, lambda: cluster_chunks(ctx, client, rad, align), progress,
+                  skip=("bad_pixels", "align", "radiometric"))
     finally:
         if client is not None:
             client.close()

@@ -95,12 +95,14 @@ def _report_picture(ctx, out_dir, outputs, entry=None):
     from .report import stack_pictures
 
     pic = ctx.picture.as_dict() if ctx.picture is not None else None
-    umap = None
+    extra = {}                              # section data drawn by their own report modules
+    if ctx.comparison_picture is not None:
+        extra["compare"] = ctx.comparison_picture
     if (outputs or {}).get("u_value"):      # heat flow: the U map for the report
         from .io import read_u_value_map
-        umap = (ctx.u_value_map if ctx.u_value_map is not None
-                else read_u_value_map(Path(out_dir) / outputs["u_value"]))
-    return stack_pictures(out_dir, ctx.name, outputs, pic, dict(ctx.masks), entry, u_value_map=umap)
+        extra["u_value_map"] = (ctx.u_value_map if ctx.u_value_map is not None
+                                else read_u_value_map(Path(out_dir) / outputs["u_value"]))
+    return stack_pictures(out_dir, ctx.name, outputs, pic, dict(ctx.masks), entry, extra)
 
 
 @dataclass
@@ -245,7 +247,13 @@ def run(config_path, out_dir=None, *, resume=False, keep_going=False, quiet=True
 
     n_run = sum(1 for k, _, _ in todo if k == "run")
     jobs = max(1, int(jobs or 1))
-    if scheduler and n_run > 1:
+    if any(isinstance((st.get("compare") or {}).get("baseline"), str) for st in cfg.data["stacks"]):
+        # a comparison reads its baseline's mean frame from this run, so the stacks
+        # of such a survey run one after another (whole-stack jobs would race)
+        jobs, scheduler_jobs = 1, False
+    else:
+        scheduler_jobs = True
+    if scheduler and n_run > 1 and scheduler_jobs:
         # a survey of many stacks on a cluster: whole stacks are the unit of work; the
         # workers read the inputs and write into the (shared) output folder
         _run_jobs(cfg, todo, out, dict(options, scheduler=None, workers=None), jobs, draw, settle, settle_other,

@@ -215,7 +215,7 @@ def test_single_time_estimate_without_log(scene, tmp_path):
 def test_irregular_frame_times_from_file(scene, tmp_path):
     # frames listed in a times file with a 2-hour gap (four frames missing): each frame
     # stands for its interval, so the frame before the gap weighs 2.5 h; U stays within 5 %
-    # of the truth (issue 11: time-weighted sums)
+    # of the truth (time-weighted sums)
     d, truth = scene
     keep = [k for k in range(FRAMES) if not 60 <= k < 64]
     stack = tifffile.imread(d / "wall.tif")[keep]
@@ -293,7 +293,7 @@ def test_report_html_and_csv(result):
 def test_contact_sensor_removes_camera_offset(scene, tmp_path):
     # a camera reading 0.4 K warm on every pixel (absolute offset): without correction the
     # insulated wall's U is far off; a contact reading on the reference region (its true
-    # mean surface temperature from the FD wall) brings U back within 5 % (issue 11)
+    # mean surface temperature from the FD wall) brings U back within 5 %
     d, truth = scene
     raw = tifffile.imread(d / "wall.tif")
     tifffile.imwrite(tmp_path / "wall.tif", raw + np.uint16(40), photometric="minisblack")

@@ -3,7 +3,7 @@
 Checks against the outside: the written TIFFs read with tifffile and averaged with numpy;
 masks from irpipe.regions.region_mask (the config's own definition); the pane scene's
 truth from the independent forward model (tests/forward_model.py); real mouse events.
-Tolerances: 0.01 K (issue 13, "Done when"), 1 px for a drag (issue 13), 0.15 K against the
+Tolerances: 0.01 K (issue 13, "Done when"), 1 px for a drag, 0.15 K against the
 forward-model truth (the end-to-end tolerance of tests/test_end_to_end.py).
 """
 import json

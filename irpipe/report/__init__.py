@@ -43,6 +43,9 @@ FILES = ("regions.csv", "findings.csv", "report.html")
 PAGED_ABOVE_STACKS = 50            # surveys with more stacks get an index page plus one page per stack
 PAGES_DIR = "report_pages"         # stack pages, beside report.html
 CACHE_DIR = ".irpipe-pictures"     # encoded pictures per stack, for --resume
+#: picture-dict keys of report sections that draw their own pictures (heat flow, comparison);
+#: passed through to them as they are, never cached
+SECTION_KEYS = ("masks", "u_value_map", "compare")
 _SAFE = re.compile(r"[^A-Za-z0-9._-]+")
 
 
@@ -69,9 +72,8 @@ def _encoded(pic):
     if pic is None or "thermogram_png" in pic:
         return pic
     enc = render_stack_pictures(pic, pic.get("masks"))
-    if pic.get("u_value_map") is not None:          # heat flow: drawn by irpipe.report.heatflow
-        enc.update(u_value_map=pic["u_value_map"], masks=dict(pic.get("masks") or {}))
-    return enc
+    extra = {k: pic[k] for k in SECTION_KEYS if pic.get(k) is not None}
+    return {**enc, **extra}
 
 
 def write_all(out_dir: Path, report: dict, pictures: dict) -> list[str]:
@@ -174,15 +176,15 @@ def _store_cache(out_dir, stacks, enc):
             continue
         try:         # a cache: written atomically but without fsync, and never worth failing for
             with atomic_path(_cache_file(out_dir, st.get("name")), fsync=False) as tmp:
-                # a heat-flow stack's U map and masks are not kept: the pipeline reads the map
-                # from the stack's outputs and the masks from the config
-                kept = {k: v for k, v in e.items() if k not in ("u_value_map", "masks")}
+                # section data are not kept: the pipeline gives them anew (the U map from the
+                # stack's outputs, the masks from the config)
+                kept = {k: v for k, v in e.items() if k not in SECTION_KEYS}
                 tmp.write_text(dumps({**kept, "entry_key": key}), encoding="utf-8")
         except OSError:
             pass
 
 
-def stack_pictures(out_dir, name, outputs, picture=None, masks=None, entry=None, u_value_map=None):
+def stack_pictures(out_dir, name, outputs, picture=None, masks=None, entry=None, extra=None):
     """The encoded pictures of one finished stack (small; what the report keeps of it).
 
     Parameters
@@ -202,9 +204,10 @@ def stack_pictures(out_dir, name, outputs, picture=None, masks=None, entry=None,
         Region masks, {name: (M, N) bool}.
     entry : dict, optional
         The stack's report.json entry (of the earlier run, for a skipped stack).
-    u_value_map : ndarray of shape (M, N), optional
-        A heat-flow stack's in-situ U map [W/(m2 K)]: kept as it is, with the masks, for
-        the heat-flow section (``irpipe.report.heatflow``; not kept in the cache).
+    extra : dict, optional
+        Data of report sections that draw their own pictures (``SECTION_KEYS``: a heat-flow
+        stack's ``u_value_map``, a comparison's ``compare``): kept as they are, with the
+        masks, and not written to the cache.
 
     Returns
     -------
@@ -214,7 +217,9 @@ def stack_pictures(out_dir, name, outputs, picture=None, masks=None, entry=None,
     """
     from .pictures import render_stack_pictures
 
-    extra = {} if u_value_map is None else {"u_value_map": u_value_map, "masks": dict(masks or {})}
+    extra = {k: v for k, v in (extra or {}).items() if v is not None}
+    if extra:
+        extra["masks"] = dict(masks or {})
     if picture is None and out_dir is not None:
         enc = _load_cached(out_dir, name, entry_key(entry)) if entry is not None else None
         if enc is not None:

@@ -431,6 +431,10 @@ def _stack_section(k, st, enc, findings, fig_no):
         from .heatflow import section
         hf_html, fig_no = section(st, enc, fig_no)
         out.append(hf_html)
+    if st.get("alignment") or st.get("compare"):     # own section (irpipe/report/comparison.py)
+        from .comparison import comparison_section
+        sec, fig_no = comparison_section(st, enc, mine, fig_no)
+        out.append(sec)
     out.append("<h3>Findings</h3>")
     if mine:
         out.append(_table(["No.", "Finding", "Location", "Peak / lowest", "Difference", "Mean", "Area [px]",

@@ -13,8 +13,8 @@ import math
 #: Finding kinds, in the order they are listed within a stack.
 KIND_ORDER = ("electrical", "envelope", "hot", "cold")
 KIND_LABEL = {"electrical": "electrical component", "envelope": "envelope surface",
-              "hot": "hot spot", "cold": "cold spot"}
-
+              "hot": "hot spot", "cold": "cold spot",
+              "colder": "colder than baseline", "warmer": "warmer than baseline"}
 FINDING_COLUMNS = ("number", "stack", "kind", "region", "frame", "row", "col", "peak_c", "mean_c",
                    "area_px", "delta_k", "reference", "severity", "priority", "detail")
 

@@ -25,9 +25,12 @@ def registry():
     from .spots import SpotStage
     from .uncertainty import UncertaintyStage
     from .writer import TemperatureWriterStage
-
-    return [BadPixelStage, RadiometricStage, UncertaintyStage, RegionStatsStage, HeatFlowStage, SpotStage,
-            PictureStage, EnvelopeStage, ElectricalStage, DatasetWriterStage, TemperatureWriterStage]
+    from .align import AlignStage
+    from .compare import CompareStage
+    from .temporal import TemporalStage
+    return [BadPixelStage, AlignStage, RadiometricStage, UncertaintyStage, RegionStatsStage, HeatFlowStage,
+            SpotStage, PictureStage, TemporalStage, CompareStage, EnvelopeStage, ElectricalStage,
+            DatasetWriterStage, TemperatureWriterStage]
 
 
 def build_chain(ctx, extra=()):

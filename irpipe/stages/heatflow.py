@@ -25,9 +25,10 @@ from .. import heatflow as hf
 from ..constants import ZERO_CELSIUS as K0
 from ..heatflow import ENERGY_CAUTION
 from ..io import StackWriter, write_tiff_atomic
+from ..uncertainty import sensitivity
 from .base import Stage
 
-U_WARN_RELATIVE = 0.30          # warn above 30 % relative expanded uncertainty (issue 11)
+U_WARN_RELATIVE = 0.30          # warn above 30 % relative expanded uncertainty
 HC_RELATIVE_UNCERTAINTY = 0.30  # default u(h_c): inside h_c from natural-convection correlations
 # spreads over roughly 1.5-4 W/(m2 K) for walls (from memory), so 30 % of h_c at k = 1
 AIR_SENSOR_K = 0.29             # default: +-0.5 K logger tolerance as a rectangular distribution
@@ -279,17 +280,16 @@ class HeatFlowStage(Stage):
             ctx.reflected_temperature_k or np.nanmean(self.tr_k))
         eps_n = min(max(eps_n, 0.02), 0.999)
         s = model.received_signal(t_k, eps_n, tr, ta)
-        h = 1e-3
-
-        def inv(sig, e=eps_n, r=tr):
-            return float(model.object_temperature(np.array([sig]), e, r, ta)[0])
-
-        d_eps = (inv(s, e=eps_n + h) - inv(s, e=eps_n - h)) / (2 * h)
-        d_tr = (inv(s, r=tr + 0.5) - inv(s, r=tr - 0.5)) / 1.0
         tapp = float(model.apparent_temperature(np.array([s]))[0])
         cam = ctx.camera
-        d_app = (inv(float(cam.signal(tapp + 0.25))) - inv(float(cam.signal(tapp - 0.25)))) / 0.5
-        return d_eps, d_tr, d_app
+
+        def surface(eps=eps_n, refl=tr, apparent=None):    # the inversion with one input moved
+            sig = s if apparent is None else float(cam.signal(apparent))
+            return float(model.object_temperature(np.array([sig]), eps, refl, ta)[0])
+
+        c = sensitivity(surface, {"eps": eps_n, "refl": tr, "apparent": tapp},
+                        {"eps": 1e-3, "refl": 0.5, "apparent": 0.25})
+        return c["eps"], c["refl"], c["apparent"]
 
     def _report(self, ctx, u_map, series, dT, offset, offset_desc, regions):
         inp = self.inp

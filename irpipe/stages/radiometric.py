@@ -12,7 +12,7 @@ import numpy as np
 
 from ..constants import ZERO_CELSIUS
 from ..correction import REASONS
-from ..kernel import Window, build_tables, correct
+from ..kernel import Window, build_tables, correct, correct_signal
 from .base import Stage
 
 
@@ -23,7 +23,8 @@ def stack_tables(ctx):
                         reflected_temperature_k=ctx.reflected_temperature_k, dtype=ctx.dtype,
                         emissivity_field=ctx.emissivity, shape=ctx.shape[1:],
                         saturation=ctx.camera_cfg.get("saturation"), nuc=ctx.nuc,
-                        reflector_mask=ctx.reflector_mask, reflector_emissivity=ctx.reflector_emissivity)
+                        reflector_mask=ctx.reflector_mask, reflector_emissivity=ctx.reflector_emissivity,
+                        per_pixel=ctx.alignment is not None)    # aligned stacks
 
 
 class RadiometricStage(Stage):
@@ -47,6 +48,15 @@ class RadiometricStage(Stage):
             ctx.lookup_counts = np.zeros(self.tables.lut_c.shape, np.int64)
 
     def process(self, chunk, ctx):
+        if chunk.aligned_signal is not None:     # linearised and resampled by the align stage
+            res = correct_signal(chunk.aligned_signal, chunk.aligned_reason, self.tables,
+                                 want_signal=self.want_signal, where=ctx.name)
+            self.add_result(chunk, res, ctx)
+            # the alignment's own reason codes (counted by the align stage) in the chunk's tally
+            from ..alignment import ALIGN_REASONS
+            chunk.invalid_counts = {**res.invalid_counts, **{c: int(np.count_nonzero(chunk.aligned_reason == c))
+                                                             for c in ALIGN_REASONS}}
+            return
         res = correct(chunk.raw, self.tables, want_signal=self.want_signal, want_index=self.want_index,
                       count=self.count, window=self.window, where=ctx.name)
         self.add_result(chunk, res, ctx)
