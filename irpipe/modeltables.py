@@ -21,8 +21,10 @@ nearly all of a model's cost. So this module keeps, per process:
   nodes takes 171 MB); a table larger than that alone is not kept.
 * ``measurement_tables(camera, transmittance, t_range)``: the signal and path tables
   per (camera, transmittance, range), so stacks with equal conditions share them (the
-  ``MAX_PATH_TABLES`` most recently used, 0.22 MB each: room for the nominal and six
-  perturbed paths of 18 stacks). Signal tables, which do
+  ``MAX_PATH_TABLES`` most recently used, about 0.5 MB each with their splines: room for
+  the nominal and six perturbed paths of a few stacks, so that neighbouring stacks taken
+  under equal conditions share them while a survey of hundreds of stacks at their own
+  distances keeps the memory of a few). Signal tables, which do
   not depend on the path, are shared between paths whenever their samples are equal.
 
 Numbers do not change: a kept table holds the values the same float operations give on
@@ -51,7 +53,7 @@ import numpy as np
 from .radiometry import MonotoneTable, node_temperatures
 
 PLANCK_CACHE_BYTES = 256 * 2**20   # bound of the kept Planck tables [bytes]
-MAX_PATH_TABLES = 128              # (signal, path) table pairs kept
+MAX_PATH_TABLES = 32               # (signal, path) table pairs kept
 MAX_SIGNAL_TABLES = 8              # distinct signal tables kept
 
 _lock = threading.RLock()

@@ -115,34 +115,44 @@ class UncertaintyStage(Stage):
 
     # -- lookup plan: U(raw value, label) ------------------------------------------------
     def _build_tables(self, ctx, eps_field, u_eps_map):
+        """Empty tables of U per (label, raw value); columns are filled for the raw values a
+        chunk needs (with a margin), the first time they are needed (``_ensure``): a stack
+        of a few frames touches a few thousand of the 65536 values. Each value's U is the
+        same whichever values are computed with it (element-wise arithmetic)."""
         rad = self.rad
-        lut = rad.lut_c
-        n_lab, nv = lut.shape
-        values = np.arange(rad.base, rad.base + nv, dtype=np.int64)
-        s_all, _ = linearise(values, rad)
+        n_lab, nv = rad.lut_c.shape
+        self.s_all, _ = linearise(np.arange(rad.base, rad.base + nv, dtype=np.int64), rad)
         if eps_field.value is not None:
-            u_lab = [float(u_eps_map.flat[0])]
+            self.u_lab = [float(u_eps_map.flat[0])]
         else:
             first = np.unique(eps_field.index.ravel(), return_index=True)
-            u_lab = np.zeros(n_lab)
-            u_lab[first[0]] = u_eps_map.ravel()[first[1]]
+            self.u_lab = np.zeros(n_lab)
+            self.u_lab[first[0]] = u_eps_map.ravel()[first[1]]
         self.table = np.full((n_lab, nv), np.nan, np.float32)
         self.contrib = {k: np.full((n_lab, nv), np.nan, np.float32) for k in self.inputs}
-        refl = rad.reflected_temperature_k
-        for k, e in enumerate(rad.emissivity_values):
-            ok = np.isfinite(lut[k])
-            if not ok.any():
-                continue
-            u = InputUncertainties(**{**self.u_base.__dict__, "emissivity": float(u_lab[k])})
-            uc, parts = gum_uncertainty(s_all[ok], float(e), refl, *self.path, u, self.models, budget=True)
-            self.table[k, ok] = COVERAGE_FACTOR * uc
-            for name in self.inputs:
-                if name in parts:
-                    self.contrib[name][k, ok] = parts[name]
-                else:
-                    self.contrib[name][k, ok] = 0.0
+        self.done = np.zeros(nv, bool)
         self.table_flat = self.table.ravel()
         self.contrib_flat = {k: v.ravel() for k, v in self.contrib.items()}
+
+    def _ensure(self, lo, hi):
+        """Fill the table columns of raw values [lo - 1024, hi + 1024] not yet computed."""
+        rad = self.rad
+        nv = rad.lut_c.shape[1]
+        a, b = max(int(lo) - rad.base - 1024, 0), min(int(hi) - rad.base + 1025, nv)
+        cols = a + np.flatnonzero(~self.done[a:b])
+        if not cols.size:
+            return
+        refl = rad.reflected_temperature_k
+        for k, e in enumerate(rad.emissivity_values):
+            c = cols[np.isfinite(rad.lut_c[k, cols])]
+            if not c.size:
+                continue
+            u = InputUncertainties(**{**self.u_base.__dict__, "emissivity": float(self.u_lab[k])})
+            uc, parts = gum_uncertainty(self.s_all[c], float(e), refl, *self.path, u, self.models, budget=True)
+            self.table[k, c] = COVERAGE_FACTOR * uc
+            for name in self.inputs:
+                self.contrib[name][k, c] = parts[name] if name in parts else 0.0
+        self.done[cols] = True
 
     # -- streaming -----------------------------------------------------------------------
     def process(self, chunk, ctx):
@@ -150,6 +160,8 @@ class UncertaintyStage(Stage):
         valid = np.isfinite(chunk.temperature_c)
         if self.lookup:
             idx = chunk.lookup_index
+            raw = chunk.raw if chunk.raw is not None else idx % self.rad.n_values + self.rad.base
+            self._ensure(raw.min(), raw.max())
             big_u = self.table_flat.take(idx)
             big_u[~valid] = np.nan
             flat_idx = idx.reshape(n, -1)
