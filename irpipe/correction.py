@@ -74,9 +74,12 @@ class MeasurementModel:
         ``camera.response.wavelength``.
     t_range : (float, float)
         Temperature range of the inverse tables [K].
+    coarse_path : bool
+        Build the path table from the band transmittance on coarse nodes (the perturbed
+        paths of the uncertainty propagation; ``irpipe.modeltables.measurement_tables``).
     """
 
-    def __init__(self, camera: CameraModel, transmittance=1.0, t_range=(213.15, 923.15)):
+    def __init__(self, camera: CameraModel, transmittance=1.0, t_range=(213.15, 923.15), coarse_path=False):
         self.camera = camera
         tau = np.asarray(transmittance, dtype=float)
         self.flat = tau.ndim == 0
@@ -84,7 +87,8 @@ class MeasurementModel:
         self.t_range = (float(t_range[0]), float(t_range[1]))
         # one Planck evaluation on the table nodes per response serves every path, and
         # equal conditions share their tables (irpipe.modeltables)
-        self.signal_table, self.path_table = measurement_tables(camera, self.tau, self.t_range, self.path_signal)
+        self.signal_table, self.path_table = measurement_tables(camera, self.tau, self.t_range, self.path_signal,
+                                                                coarse=coarse_path)
 
     def effective_transmittance(self, temperature):
         """tau_eff(T): band transmittance weighted by a blackbody at T [fraction]."""

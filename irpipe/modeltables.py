@@ -131,7 +131,43 @@ def _signal_table(func, t_range, samples):
     return table
 
 
-def measurement_tables(camera, transmittance, t_range, path_signal):
+#: perturbed paths: the path's band transmittance on every COARSE_STEP-th table node
+COARSE_STEP = 16
+_plain: OrderedDict = OrderedDict()
+
+
+def _plain_nodes(camera, t_range, t_nodes):
+    """S(T) of the camera on every table node (path-independent; kept per camera and range)."""
+    key = (_camera_key(camera), t_range)
+    s_nodes = _plain.get(key) if _state["enabled"] else None
+    if s_nodes is None:
+        if camera.kind == "band":
+            # the same two-column product as a spectral path's tables, so that S is the
+            # same to the bit as the one of the stack's own model
+            pt = planck_table(camera.response, t_range)
+            s_nodes = camera.response.band_radiances(t_nodes if pt is None else pt, [None, None])[0]
+        else:
+            s_nodes = camera.signal(t_nodes)
+        if _state["enabled"]:
+            _plain[key] = s_nodes
+            while len(_plain) > MAX_SIGNAL_TABLES:
+                _plain.popitem(last=False)
+    return s_nodes
+
+
+def _coarse_planck(response, t_range, t_nodes):
+    """Planck's law on every COARSE_STEP-th table node and the last (kept per response and range)."""
+    key = ("coarse", _digest(response.wavelength), t_range)
+    table = _planck.get(key) if _state["enabled"] else None
+    if table is None:
+        idx = np.unique(np.r_[np.arange(0, t_nodes.size, COARSE_STEP), t_nodes.size - 1])
+        table = response.planck_table(t_nodes[idx])
+        if _state["enabled"]:
+            _planck[key] = table
+    return table
+
+
+def measurement_tables(camera, transmittance, t_range, path_signal, coarse=False):
     """The signal and path tables of a measurement model, shared by equal conditions.
 
     Parameters
@@ -143,6 +179,12 @@ def measurement_tables(camera, transmittance, t_range, path_signal):
         Temperature range of the tables [K].
     path_signal : callable
         Exact G(T) of the model (kept as the path table's ``func``).
+    coarse : bool
+        For the perturbed paths of the uncertainty propagation: the band transmittance
+        tau_eff(T) = L_tau / L is integrated on every ``COARSE_STEP``-th node only and
+        interpolated linearly in 1/T between them (tau_eff is smooth in T: the
+        interpolation error is below 1e-7 over the LWIR band's range), so a new path costs
+        a sixteenth of the weighted sums. The tables of stacks' own paths are never coarse.
 
     Returns
     -------
@@ -163,7 +205,7 @@ def measurement_tables(camera, transmittance, t_range, path_signal):
     t_range = (float(t_range[0]), float(t_range[1]))
     tau = np.asarray(transmittance, dtype=float)
     with _lock:
-        key = (_camera_key(camera), t_range, _digest(tau)) if _state["enabled"] else None
+        key = (_camera_key(camera), t_range, _digest(tau), bool(coarse)) if _state["enabled"] else None
         if key is not None and key in _paths:
             _paths.move_to_end(key)
             _state["path_hits"] += 1
@@ -172,7 +214,14 @@ def measurement_tables(camera, transmittance, t_range, path_signal):
         t_nodes = node_temperatures(*t_range)
         r = camera.response
         band = camera.kind == "band"
-        if tau.ndim == 0:
+        if coarse and tau.ndim == 1:
+            ptc = _coarse_planck(r, t_range, t_nodes)
+            l_plain_c, l_tau_c = r.band_radiances(ptc, [None, tau])
+            inv_c = 1.0 / ptc.temperature
+            tau_eff = np.interp(1.0 / t_nodes, inv_c[::-1], (l_tau_c / l_plain_c)[::-1])
+            s_nodes = _plain_nodes(camera, t_range, t_nodes)
+            g_nodes = s_nodes * tau_eff
+        elif tau.ndim == 0:
             if band:
                 pt = planck_table(r, t_range)
                 s_nodes = r.band_radiance(t_nodes if pt is None else pt)
@@ -207,6 +256,7 @@ def clear():
         _planck.clear()
         _paths.clear()
         _signals.clear()
+        _plain.clear()
         _state.update(planck_hits=0, planck_misses=0, path_hits=0, path_misses=0)
 
 

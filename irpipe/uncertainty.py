@@ -168,7 +168,9 @@ def path_variant(base, transmittance):
     """
     from .correction import MeasurementModel
 
-    return MeasurementModel(base.camera, transmittance, base.t_range)
+    # the path table's transmittance on coarse nodes: a perturbed path only enters
+    # through differences of two such models (irpipe.modeltables.measurement_tables)
+    return MeasurementModel(base.camera, transmittance, base.t_range, coarse_path=True)
 
 
 def _as_cache(model_factory):

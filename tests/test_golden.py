@@ -4,7 +4,9 @@ recorded from commit 02b23b4). A change that moves code must not move a number; 
 that means to move one re-records the file and says why in its commit.
 
 Re-recorded once since: exact-rank region percentiles (every arrays bit-identical; only
-some p95_c values moved, by at most 0.0005 K, e.g. 30.125 -> 30.1255).
+some p95_c values moved, by at most 0.0005 K, e.g. 30.125 -> 30.1255); and perturbed paths of
+the uncertainty propagation built from coarse-node transmittance (uncertainty arrays moved by at
+most 1.2e-7 K, one float32 step; temperatures bit-identical).
 
 Stacks added to the demo later are not in the record and are not compared."""
 import json
