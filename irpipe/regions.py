@@ -287,20 +287,23 @@ def local_linear_smooth(image, mask, radius=2):
     s0, sr, sc = conv(w, ones), conv(w, dr), conv(w, dc)
     srr, scc, src = conv(w, dr * dr), conv(w, dc * dc), conv(w, dr * dc)
     st, srt, sct = conv(z, ones), conv(z, dr), conv(z, dc)
-    a = np.stack([np.stack([s0, sr, sc], -1), np.stack([sr, srr, src], -1), np.stack([sc, src, scc], -1)], -2)
-    b = np.stack([st, srt, sct], -1)
     out = np.full(image.shape, np.nan)
     sel = m & (s0 >= 3)
-    det = np.linalg.det(a[sel])
+    few = m & (s0 < 3)
+    # the intercept of the 3x3 symmetric normal equations by Cramer's rule: first row of
+    # the adjugate (cofactors c0, c1, c2) over the determinant, for all pixels at once
+    s0, sr, sc, srr, scc, src, st, srt, sct = (x[sel] for x in (s0, sr, sc, srr, scc, src, st, srt, sct))
+    c0 = srr * scc - src * src
+    c1 = sc * src - sr * scc
+    c2 = sr * src - srr * sc
+    det = s0 * c0 + sr * c1 + sc * c2
     good = np.abs(det) > 1e-9
-    sol = np.full((sel.sum(), 3), np.nan)
-    sol[good] = np.linalg.solve(a[sel][good], b[sel][good][..., None])[..., 0]
-    vals = sol[:, 0]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        vals = (st * c0 + srt * c1 + sct * c2) / det
     # where the plane is undetermined (collinear neighbours), use the window mean
-    mean = (st / np.maximum(s0, 1))[sel]
+    mean = st / np.maximum(s0, 1)
     vals = np.where(good, vals, mean)
     out[sel] = vals
-    few = m & (s0 < 3)
     out[few] = image[few]
     return out
 

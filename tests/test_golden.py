@@ -6,7 +6,9 @@ that means to move one re-records the file and says why in its commit.
 Re-recorded once since: exact-rank region percentiles (every arrays bit-identical; only
 some p95_c values moved, by at most 0.0005 K, e.g. 30.125 -> 30.1255); and perturbed paths of
 the uncertainty propagation built from coarse-node transmittance (uncertainty arrays moved by at
-most 1.2e-7 K, one float32 step; temperatures bit-identical).
+most 1.2e-7 K, one float32 step; temperatures bit-identical); and the plane fit of the robust
+region minimum solved in closed form (Cramer's rule) instead of by LAPACK per pixel (one stack's
+minimum surface temperature and temperature factor moved in the last binary digit, 4e-15 K).
 
 Stacks added to the demo later are not in the record and are not compared."""
 import json
