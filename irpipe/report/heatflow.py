@@ -10,13 +10,13 @@ other than temperature gets a map other than the thermogram's).
 from __future__ import annotations
 
 import base64
-import io
 from html import escape
 
 import numpy as np
 
+from .figures import _new_figure, _png
+
 U_CMAP = "cividis"
-DPI = 110
 HEAT_FLOW_COLUMNS = ("area_m2", "heat_flux_w_m2", "u_value_w_m2k", "u_value_expanded_uncertainty_w_m2k",
                      "u_value_converged", "annual_heat_loss_kwh", "annual_heat_cost", "psi_w_mk",
                      "bridge_length_m", "excess_annual_heat_loss_kwh")
@@ -28,21 +28,6 @@ def _e(x):
 
 def _n(x, nd=3):
     return "–" if x is None else f"{x:.{nd}f}"
-
-
-def _fig(w, h):
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
-
-    fig = Figure(figsize=(w, h), dpi=DPI)
-    FigureCanvasAgg(fig)
-    return fig
-
-
-def _png(fig):
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=DPI, metadata={"Software": None})
-    return buf.getvalue()
 
 
 def _img(png, alt, width):
@@ -62,7 +47,7 @@ def u_value_picture(u_map, masks=None):
         lo, hi = lo - 0.025, hi + 0.025
     w = 6.2
     h = max(2.0, (w - 1.3) * rows / cols + 0.6)
-    fig = _fig(w, h)
+    fig = _new_figure(w, h)
     ax = fig.add_axes([0.08, 0.1, 0.72, 0.85])
     cmap = matplotlib.colormaps[U_CMAP].with_extremes(bad="#8c8c8c")
     im = ax.imshow(u, cmap=cmap, vmin=max(lo, 0.0) if lo >= 0 else lo, vmax=hi, interpolation="nearest")
@@ -84,7 +69,7 @@ def u_value_picture(u_map, masks=None):
 def cumulative_plot(regions, min_hours=72.0):
     """PNG of the cumulative average U against time per region, with the 72 h minimum
     duration and the +-5 % band around each region's end value (ISO 9869-1, from memory)."""
-    fig = _fig(6.2, 2.9)
+    fig = _new_figure(6.2, 2.9)
     ax = fig.add_axes([0.1, 0.16, 0.62, 0.78])
     import matplotlib
     cm = matplotlib.colormaps["viridis"]
