@@ -220,17 +220,20 @@ def _mean_from_entry(entry, out_dir, label):
     return img, noise, meta
 
 
-def _written_mean(cfg, name, out_dir, ctx):
-    names = [s["name"] for s in cfg.data["stacks"]]
-    i = names.index(name)
-    label = f"baseline of stack '{ctx.name}'"
+def _baseline_from_outputs(cfg, name, out_dir, label, survey=None, source="written outputs"):
+    """A baseline's mean frame read from a survey's written outputs (checked current)."""
+    i = [s["name"] for s in cfg.data["stacks"]].index(name)
     entry = _manifest_entry(out_dir, name, label)
     _check_current(cfg, i, entry, out_dir, label)
     img, noise, meta = _mean_from_entry(entry, out_dir, label)
     sv = cfg.data.get("survey", {})
     return {"mean_c": img, "noise": noise, "name": name, "time": stack_time(cfg.data["stacks"][i]),
-            "survey": None, "source": "written outputs", "indoor_air_c": sv.get("indoor_air_c"),
+            "survey": survey, "source": source, "indoor_air_c": sv.get("indoor_air_c"),
             "outdoor_air_c": sv.get("outdoor_air_c")}
+
+
+def _written_mean(cfg, name, out_dir, ctx):
+    return _baseline_from_outputs(cfg, name, out_dir, f"baseline of stack '{ctx.name}'")
 
 
 def _other_survey_mean(survey_path, name, ctx):
@@ -241,13 +244,6 @@ def _other_survey_mean(survey_path, name, ctx):
     if name not in names:
         raise InputDataError(f"{survey_path}: survey has no stack '{name}' (compare.baseline of stack "
                              f"'{ctx.name}'); its stacks: {', '.join(names)}")
-    i = names.index(name)
-    out_dir = other.base_dir / other.data["output"]["dir"]
-    label = f"baseline of stack '{ctx.name}' from survey {Path(survey_path).name}"
-    entry = _manifest_entry(out_dir, name, label)
-    _check_current(other, i, entry, out_dir, label)
-    img, noise, meta = _mean_from_entry(entry, out_dir, label)
-    sv = other.data.get("survey", {})
-    return {"mean_c": img, "noise": noise, "name": name, "time": stack_time(other.data["stacks"][i]),
-            "survey": str(survey_path), "source": "written outputs of another survey",
-            "indoor_air_c": sv.get("indoor_air_c"), "outdoor_air_c": sv.get("outdoor_air_c")}
+    return _baseline_from_outputs(other, name, other.base_dir / other.data["output"]["dir"],
+                                  f"baseline of stack '{ctx.name}' from survey {Path(survey_path).name}",
+                                  survey=str(survey_path), source="written outputs of another survey")
