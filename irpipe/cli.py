@@ -109,7 +109,7 @@ def _dispatch(args):
         from .config import load_config
         from .pipeline import plan
         cfg = load_config(args.config)
-        _, _, ctxs = plan(cfg, Path("."))
+        _, _, ctxs = plan(cfg, Path("."), with_model=False)   # every check, no tables built
         print(f"{args.config}: OK ({len(ctxs)} stack(s): "
               + ", ".join(f"{c.name} {c.shape[0]}x{c.shape[1]}x{c.shape[2]}" for c in ctxs) + ")")
         return 0

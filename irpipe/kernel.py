@@ -252,26 +252,26 @@ def _correct_lookup(raw, t: PixelTables, want_index, count, window):
     # a few frames per call keeps the index block small (and GIL hand-overs few)
     step = max(1, min(raw.shape[0], (1 << 21) // max(1, raw[0].size)))
     idx = np.empty((step,) + raw.shape[1:], np.intp)
-    hist = None
-    for k in range(0, raw.shape[0], step):
-        m = min(step, raw.shape[0] - k)
-        np.add(raw[k:k + m], window.offsets, out=idx[:m])
-        np.take(window.lut, idx[:m], out=out[k:k + m], mode="clip")
-        if count:
-            c = np.bincount(idx[:m].reshape(-1), minlength=nl * span)
-            hist = c if hist is None else hist + c
-    if hist is None and window.bad_any and np.isnan(out).any():
-        # every invalid table entry is NaN: only a chunk with NaN needs counting by reason
-        hist = np.zeros(nl * span, np.int64)
+
+    def sweep(gather, tally):
+        hist = np.zeros(nl * span, np.int64) if tally else None
         for k in range(0, raw.shape[0], step):
             m = min(step, raw.shape[0] - k)
             np.add(raw[k:k + m], window.offsets, out=idx[:m])
-            hist += np.bincount(idx[:m].reshape(-1), minlength=hist.size)
+            if gather:
+                np.take(window.lut, idx[:m], out=out[k:k + m], mode="clip")
+            if tally:
+                hist += np.bincount(idx[:m].reshape(-1), minlength=hist.size)
+        return hist
+
+    hist = sweep(True, count)
+    if hist is None and window.bad_any and np.isnan(out).any():
+        # every invalid table entry is NaN: only a chunk with NaN needs counting by reason
+        hist = sweep(False, True)
     if hist is None:
         return KernelResult(out, {c: 0 for c in REASONS})
     h = hist.reshape(nl, span)
-    inv = {c: int(h[t.reason_lut[:, a:a + span] == c].sum()) for c in REASONS}
-    return KernelResult(out, inv, value_counts=(a, h))
+    return KernelResult(out, _counts_by_reason(t.reason_lut[:, a:a + span], h), value_counts=(a, h))
 
 
 def _correct_per_pixel(raw, t: PixelTables, want_signal, where):
