@@ -101,7 +101,7 @@ class StackContext:
 
     # ---- set by stages ----
     tables: Any = None                 # irpipe.kernel.PixelTables (radiometric)
-    lookup_counts: np.ndarray | None = None   # (labels, values) counts of every (label, raw) (radiometric, lookup)
+    lookup_counts: np.ndarray | None = None   # (groups, values) counts of every (tally group, raw) (radiometric, lookup)
     reflected_series_k: list = field(default_factory=list)   # reflector method, per frame (radiometric)
     region_uncertainty: dict = field(default_factory=dict)   # region -> figures (uncertainty)
     picture: Picture | None = None     # (picture)

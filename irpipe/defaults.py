@@ -15,7 +15,8 @@ CONFIG_TEMPERATURE_RANGE_C = (-100.0, 1000.0)
 #: frames per chunk streamed through the stage chain (``output.frame_chunk``)
 FRAME_CHUNK = 32
 
-#: bin width of the region statistics' histograms [K]. Region percentiles are read from
+#: bin width of the region statistics' streaming histograms [K] (per-pixel plan and cluster
+#: runs of it; the lookup plan's percentiles are exact). Region percentiles are read from
 #: it by interpolating between the bin centres of the neighbouring order statistics, so
 #: they differ from the exact (numpy "linear") percentile by at most half a bin, 0.005 K.
 STATISTICS_BIN_K = 0.01

@@ -55,10 +55,23 @@ class PixelTables:
     reason_lut: np.ndarray | None = None   # (labels, values) uint8 reason codes
     label_index: np.ndarray | None = None  # (M, N) int32 label of each pixel, None for one label
     emissivity_values: tuple = ()
+    # tally groups of the lookup plan (:func:`tally_groups`): pixels of equal label and
+    # equal region membership; the kernel counts (group, raw value) pairs
+    group_index: np.ndarray | None = None  # (M, N) int32 group of each pixel, None: groups = labels
+    group_label: np.ndarray | None = None  # (G,) int32 table row (label) of each group
+    groups_split_regions: bool = False     # groups are also split by the stack's regions
 
     @property
     def n_values(self):
         return self.lut_c.shape[1]
+
+    @property
+    def n_groups(self):
+        return self.lut_c.shape[0] if self.group_label is None else int(self.group_label.size)
+
+    def group_rows(self, table):
+        """Rows of a (labels, values) table in tally-group order: (groups, values)."""
+        return table if self.group_label is None else table[self.group_label]
 
     @property
     def plan(self):
@@ -113,7 +126,7 @@ def lookup_plan_possible(dtype, nuc, emissivity_field, reflected_temperature_k) 
 
 def build_tables(*, input, calibration, model, air_temperature_k, reflected_temperature_k, dtype,
                  emissivity_field, shape, saturation=None, nuc=None, reflector_mask=None,
-                 reflector_emissivity=0.0, per_pixel=False) -> PixelTables:
+                 reflector_emissivity=0.0, per_pixel=False, regions=()) -> PixelTables:
     """The frozen tables of one stack.
 
     Parameters
@@ -135,6 +148,10 @@ def build_tables(*, input, calibration, model, air_temperature_k, reflected_temp
     per_pixel : bool
         Use the per-pixel plan even where the lookup plan applies (aligned stacks, whose
         signal arrives resampled by the align stage).
+    regions : sequence of (M, N) bool masks
+        Lookup plan: also split the tally groups by membership of these regions, so that
+        the (group, raw value) counts give every region's exact histogram (unless that
+        needs more than ``MAX_TALLY_ENTRIES`` counters; then groups are the labels).
     """
     dtype = np.dtype(dtype)
     if saturation is None and np.issubdtype(dtype, np.integer):
@@ -160,8 +177,57 @@ def build_tables(*, input, calibration, model, air_temperature_k, reflected_temp
         lut[k] = np.where(r == VALID, t - ZERO_CELSIUS, np.nan)
         reason_lut[k] = r
     label_index = None if emissivity_field.value is not None else emissivity_field.index.astype(np.int32)
+    groups = tally_groups(label_index, regions, tuple(shape), len(eps_values), values.size)
     return PixelTables(lookup=True, base=int(info.min), lut_c=lut, reason_lut=reason_lut, label_index=label_index,
-                       emissivity_values=tuple(float(e) for e in eps_values), **common)
+                       emissivity_values=tuple(float(e) for e in eps_values), **groups, **common)
+
+
+#: most (group, raw value) counters of a stack's tally (int64 each: 32 MB)
+MAX_TALLY_ENTRIES = 1 << 22
+
+
+def tally_groups(label_index, regions, shape, n_labels, n_values):
+    """Tally groups of the lookup plan: pixels of equal label and equal membership of
+    every region (a pure function of the label image and the region masks).
+
+    Within a group every pixel maps raw values through the same table row, and every
+    region is a union of whole groups; so the counts of (group, raw value) pairs over a
+    stack give, folded through the table, the exact histogram of every region's
+    temperatures and of the whole image (``irpipe.regions.counted_statistics``).
+
+    Returns
+    -------
+    dict
+        ``group_index`` ((M, N) int32, or None when the groups are the labels),
+        ``group_label`` ((G,) int32, or None) and ``groups_split_regions`` (bool).
+        Groups are the labels alone when there are no regions or when splitting needs
+        more than ``MAX_TALLY_ENTRIES`` counters.
+    """
+    labels_only = {"group_index": None, "group_label": None, "groups_split_regions": False}
+    masks = [np.asarray(m, bool) for m in regions]
+    if not masks or any(m.shape != tuple(shape) for m in masks):
+        return labels_only
+    key = np.zeros(shape, np.int64) if label_index is None else label_index.astype(np.int64)
+    lb = max(1, int(n_labels - 1).bit_length())            # bits of the label in the key
+    if len(masks) + lb <= 24:
+        # dense: a flag per possible key (at most 16 M), groups numbered in key order
+        for k, m in enumerate(masks):
+            key |= m.astype(np.int64) << np.int64(k + lb)
+        flag = np.zeros(int(key.max()) + 1, np.int64)
+        flag[key.ravel()] = 1
+        keys = np.flatnonzero(flag)
+        inverse = (np.cumsum(flag) - 1)[key.ravel()]
+        lab_of_group = keys & ((1 << lb) - 1)
+    else:
+        rows = np.concatenate([key.reshape(-1, 1).view(np.uint8),
+                               np.packbits(np.stack([m.ravel() for m in masks], 1), axis=1)], 1)
+        _, first, inverse = np.unique(rows, axis=0, return_index=True, return_inverse=True)
+        lab_of_group = key.ravel()[first]
+    n_groups = int(lab_of_group.size)
+    if n_groups * int(n_values) > MAX_TALLY_ENTRIES:
+        return labels_only
+    return {"group_index": inverse.reshape(shape).astype(np.int32), "group_label": lab_of_group.astype(np.int32),
+            "groups_split_regions": True}
 
 
 @dataclass
@@ -182,13 +248,15 @@ class Window:
         w0, w1 = max(info_lo, lo - 1024), min(info_hi, hi + 1024)
         span = w1 - w0 + 1
         a, b = w0 - tables.base, w1 - tables.base + 1
-        self.lut = np.ascontiguousarray(tables.lut_c[:, a:b]).ravel()
-        self.bad = tables.reason_lut[:, a:b] != VALID
+        # rows in tally-group order: one gather gives the temperature and the group's counter
+        self.lut = np.ascontiguousarray(tables.group_rows(tables.lut_c[:, a:b])).ravel()
+        self.bad = tables.group_rows(tables.reason_lut[:, a:b]) != VALID
         self.bad_any = bool(self.bad.any())
-        if tables.label_index is None:
+        index = tables.label_index if tables.group_index is None else tables.group_index
+        if index is None:
             self.offsets = np.intp(-w0)
         else:
-            self.offsets = tables.label_index.astype(np.intp) * np.intp(span) - np.intp(w0)
+            self.offsets = index.astype(np.intp) * np.intp(span) - np.intp(w0)
         self.bounds = (w0, w1, a, span)
         return self.bounds
 
@@ -202,8 +270,8 @@ class KernelResult:
     signal: np.ndarray | None = None           # per-pixel plan, when asked for
     lookup_index: np.ndarray | None = None     # lookup plan, when asked for
     reflected_temperature_k: np.ndarray | None = None   # (F,) reflector method
-    #: lookup plan: (first column, (labels, span) counts) of the (label, raw value) pairs of
-    #: the chunk, when counted (always with ``count=True``)
+    #: lookup plan: (first column, (groups, span) counts) of the (tally group, raw value)
+    #: pairs of the chunk, when counted (always with ``count=True``)
     value_counts: tuple | None = None
 
 
@@ -221,7 +289,7 @@ def correct(raw, tables: PixelTables, *, want_signal=False, want_index=False, co
     want_index : bool
         Lookup plan: also return the flat table index of every pixel.
     count : bool
-        Lookup plan: also return the (label, raw value) counts of the chunk. Without it
+        Lookup plan: also return the (tally group, raw value) counts of the chunk. Without it
         they are counted only when the chunk has invalid pixels (to count those by reason).
     window : Window, optional
         Cache for the lookup plan (pass the same one for the chunks of one stack).
@@ -239,39 +307,61 @@ def _counts_by_reason(codes_of_values, counts):
 
 
 def _correct_lookup(raw, t: PixelTables, want_index, count, window):
-    nl = t.lut_c.shape[0]
+    nl = t.n_groups
     if want_index:
         idx = t.index_of(raw)
         temp = t.lut_c.ravel().take(idx)
-        counts = np.bincount(idx.ravel(), minlength=t.lut_c.size).reshape(nl, -1)
-        inv = _counts_by_reason(t.reason_lut, counts)
+        if t.group_index is None:
+            gidx = idx
+        else:
+            gidx = np.add(raw, t.group_index * np.int32(t.n_values) - np.int32(t.base), dtype=np.int32)
+        counts = np.bincount(gidx.ravel(), minlength=nl * t.n_values).reshape(nl, -1)
+        inv = _counts_by_reason(t.group_rows(t.reason_lut), counts)
         return KernelResult(temp, inv, lookup_index=idx, value_counts=(0, counts))
     lo, hi = int(raw.min()), int(raw.max())
     _, _, a, span = window.fit(t, lo, hi)
     out = np.empty(raw.shape, np.float32)
-    # a few frames per call keeps the index block small (and GIL hand-overs few)
-    step = max(1, min(raw.shape[0], (1 << 21) // max(1, raw[0].size)))
-    idx = np.empty((step,) + raw.shape[1:], np.intp)
-
-    def sweep(gather, tally):
-        hist = np.zeros(nl * span, np.int64) if tally else None
-        for k in range(0, raw.shape[0], step):
-            m = min(step, raw.shape[0] - k)
-            np.add(raw[k:k + m], window.offsets, out=idx[:m])
-            if gather:
-                np.take(window.lut, idx[:m], out=out[k:k + m], mode="clip")
-            if tally:
-                hist += np.bincount(idx[:m].reshape(-1), minlength=hist.size)
-        return hist
-
-    hist = sweep(True, count)
+    hist = _sweep(raw, window, nl * span, out, count)
     if hist is None and window.bad_any and np.isnan(out).any():
         # every invalid table entry is NaN: only a chunk with NaN needs counting by reason
-        hist = sweep(False, True)
+        hist = _sweep(raw, window, nl * span, None, True)
     if hist is None:
         return KernelResult(out, {c: 0 for c in REASONS})
     h = hist.reshape(nl, span)
-    return KernelResult(out, _counts_by_reason(t.reason_lut[:, a:a + span], h), value_counts=(a, h))
+    return KernelResult(out, _counts_by_reason(t.group_rows(t.reason_lut[:, a:a + span]), h), value_counts=(a, h))
+
+
+def _sweep(raw, window, bins, out, tally):
+    """The lookup plan's block loop: gather the temperatures into ``out`` (unless None)
+    and count the (group, raw value) pairs into ``bins`` counters (when ``tally``)."""
+    # about one frame per call: the index block stays in cache between the gather and the count
+    step = max(1, min(raw.shape[0], (1 << 18) // max(1, raw[0].size)))
+    idx = np.empty((step,) + raw.shape[1:], np.intp)
+    hist = np.zeros(bins, np.int64) if tally else None
+    for k in range(0, raw.shape[0], step):
+        m = min(step, raw.shape[0] - k)
+        np.add(raw[k:k + m], window.offsets, out=idx[:m])
+        if out is not None:
+            np.take(window.lut, idx[:m], out=out[k:k + m], mode="clip")
+        if tally:
+            hist += np.bincount(idx[:m].reshape(-1), minlength=bins)
+    return hist
+
+
+def count_values(raw, tables: PixelTables, window: Window | None = None):
+    """The (tally group, raw value) counts of a chunk of raw frames, without correcting it
+    (lookup plan; the cluster's workers send these with the temperatures).
+
+    Returns
+    -------
+    (int, ndarray of shape (groups, span))
+        First table column of the counts, and the counts.
+    """
+    if not tables.lookup:
+        raise ValueError("count_values needs the lookup plan")
+    window = window or Window()
+    _, _, a, span = window.fit(tables, int(raw.min()), int(raw.max()))
+    return a, _sweep(raw, window, tables.n_groups * span, None, True).reshape(tables.n_groups, span)
 
 
 def _correct_per_pixel(raw, t: PixelTables, want_signal, where):

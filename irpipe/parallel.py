@@ -22,7 +22,7 @@ from .calibration import BadPixelFiller
 from .correction import REASONS
 from .errors import InputDataError
 from .alignment import ALIGN_REASONS
-from .kernel import correct, correct_signal
+from .kernel import correct, correct_signal, count_values
 from .runner import run_chain
 from .stages.base import Chunk
 from .stages.radiometric import RadiometricStage
@@ -100,6 +100,15 @@ def pixel_block(raw, frames=None, *, tables, bad_pixel_mask=None, want_signal=Fa
     return res.temperature_c, side
 
 
+def block_counts(raw, *, tables, bad_pixel_mask=None):
+    """The (tally group, raw value) counts of one block of raw frames (runs on a worker,
+    from the same read as ``pixel_block``): ``(first column, (groups, span) counts)``."""
+    raw = np.array(raw, copy=True, order="C")
+    if bad_pixel_mask is not None:
+        BadPixelFiller(bad_pixel_mask).fill(raw)
+    return count_values(raw, tables)
+
+
 def lazy_temperature(raw, tables, bad_pixel_mask=None, want_signal=False, want_index=False, align=None):
     """Map ``pixel_block`` over the chunks of ``raw`` (from ``lazy_stack``) with
     ``xarray.apply_ufunc(..., dask="parallelized")``; returns the lazy outputs as
@@ -137,11 +146,18 @@ def cluster_chunks(ctx, client, rad, align=None):
     tables = ctx.tables
     want_signal = rad.want_signal and not tables.lookup
     want_index = rad.want_index and tables.lookup
-    # the client sees temperatures, not the table counts: the picture stage bins them
-    ctx.lookup_counts = None
     raw = lazy_stack(ctx.stack["path"], ctx.shape, ctx.dtype, size, label=f"stack '{ctx.name}'")
     outs = lazy_temperature(raw, tables, ctx.bad_pixel_mask, want_signal, want_index, align)
     blocks = [o.data.to_delayed().reshape(-1) for o in outs]
+    # the lookup plan's (group, raw) counts, from the same reads (one task per block)
+    counted = rad.count and tables.lookup and align is None
+    if counted:
+        import dask
+
+        blocks.append([dask.delayed(block_counts, pure=False)(b, tables=tables, bad_pixel_mask=ctx.bad_pixel_mask)
+                       for b in raw.data.to_delayed().reshape(-1)])
+    else:
+        ctx.lookup_counts = None            # the picture and region stages bin the temperatures
     ahead = max(2, 2 * len(client.nthreads() or {0: 1}))
     pending = {}
     for k in range(len(blocks[0])):
@@ -160,7 +176,8 @@ def cluster_chunks(ctx, client, rad, align=None):
                 align.counts[ALIGN_REASONS[c]] += n
 
         class _Result:          # the kernel result as the radiometric stage takes it
-            temperature_c, invalid_counts, value_counts = t, inv, None
+            temperature_c, invalid_counts = t, inv
+            value_counts = res[-1] if counted else None
             signal = res[2] if want_signal else None
             lookup_index = res[2] if want_index else None
             reflected_temperature_k = refl.copy() if np.isfinite(refl).any() else None

@@ -73,7 +73,9 @@ class RegionAccumulator:
     """Streaming statistics of one region over all frames of a stack.
 
     Holds O(frames) per-frame summaries and a fixed-size histogram, never the data.
-    Percentiles come from the histogram of every value (bins of ``STATISTICS_BIN_K``), by
+    Percentiles come from the histogram of every value (bins of ``STATISTICS_BIN_K``), or,
+    given the counted values of the stack (``result(counted=...)``, the lookup plan), exactly
+    (``counted_statistics``). From the histogram they follow
     the rank rule of ``numpy.percentile``'s default (linear) method applied to the bin
     centres: each order statistic is replaced by the centre of its bin, so the result is
     within half a bin (0.005 K) of the exact percentile.
@@ -99,6 +101,7 @@ class RegionAccumulator:
         self.min_at = None
         self.max_at = None
         self.frames = []
+        self.binned = True          # histogram and sum of squares kept (see ``update``)
         self.nbins = int(round((_HIST_HI_C - _HIST_LO_C) / _HIST_STEP))
         self.hist = np.zeros(self.nbins, np.int64)
         self._box = None
@@ -109,8 +112,13 @@ class RegionAccumulator:
             if self.mask[r0:r1, c0:c1].all():
                 self._box = (r0, r1, c0, c1)
 
-    def update(self, chunk_c, first_frame):
-        """Add frames ``chunk_c`` (F, M, N) [C] starting at frame index ``first_frame``."""
+    def update(self, chunk_c, first_frame, binned=True):
+        """Add frames ``chunk_c`` (F, M, N) [C] starting at frame index ``first_frame``.
+
+        ``binned=False``: keep only the per-frame figures, the minimum, the maximum and the
+        sum; the spread and the percentiles then come from the stack's counted values
+        (``result(counted=...)``), so the histogram and the sum of squares are skipped."""
+        self.binned = self.binned and binned
         chunk = np.asarray(chunk_c)
         if self.pixels == 0 or chunk.ndim != 3 or chunk.dtype not in (np.float32, np.float64):
             return self._update_general(chunk, first_frame)
@@ -137,7 +145,8 @@ class RegionAccumulator:
         d2 = d.reshape(f, -1)
         dsum = d2.sum(axis=1, dtype=v.dtype).astype(np.float64)      # pairwise per frame
         self.s1 += float(dsum.sum())
-        self.s2 += float(sum(np.vdot(d2[k], d2[k]) for k in range(f)))
+        if self.binned:
+            self.s2 += float(sum(np.vdot(d2[k], d2[k]) for k in range(f)))
         self.n += f * p
         fmean = dsum / p + sh
         for k in range(f):
@@ -151,6 +160,8 @@ class RegionAccumulator:
         if fmax[k] > self.max:
             self.max = float(fmax[k])
             self.max_at = self._where_fast(first_frame + k, int(np.argmax(v[k])))
+        if not self.binned:
+            return
         # histogram bins: (v - lo) / step, truncated (the cast), clipped to the range;
         # a few frames at a time so the integer bins stay small
         np.add(v, typ(-_HIST_LO_C), out=d)
@@ -203,8 +214,9 @@ class RegionAccumulator:
             if vv[j] > self.max:
                 self.max = float(vv[j])
                 self.max_at = self._where(first_frame + j[0], j[1])
-            b = np.clip(((v[ok] - _HIST_LO_C) / _HIST_STEP).astype(np.int64), 0, self.nbins - 1)
-            self.hist += np.bincount(b, minlength=self.nbins)
+            if self.binned:
+                b = np.clip(((v[ok] - _HIST_LO_C) / _HIST_STEP).astype(np.int64), 0, self.nbins - 1)
+                self.hist += np.bincount(b, minlength=self.nbins)
 
     def _where(self, frame, p):
         r, c = np.unravel_index(self.idx[p], self.mask.shape)
@@ -225,19 +237,83 @@ class RegionAccumulator:
         ci, cj = _HIST_LO_C + (ki + 0.5) * _HIST_STEP, _HIST_LO_C + (kj + 0.5) * _HIST_STEP
         return float(ci + (h - i) * (cj - ci))
 
-    def result(self):
-        """Summary dict for report.json (degrees Celsius)."""
+    def result(self, counted=None):
+        """Summary dict for report.json (degrees Celsius).
+
+        ``counted``: (values, counts) of every valid value of the region over the stack
+        (the lookup plan's tally, ``counted_statistics``); the spread and the percentiles
+        then come from them exactly. Required after ``update(..., binned=False)``."""
+        if not self.binned and counted is None:
+            raise ValueError(f"region '{self.name}': updated without histogram; pass the counted values")
         if self.n == 0:
             return {"name": self.name, "pixels": self.pixels, "valid_values": 0, "min_c": None, "max_c": None,
                     "mean_c": None, "std_c": None, "p05_c": None, "p95_c": None,
                     "min_at": None, "max_at": None, "frames": self.frames}
         mean_d = self.s1 / self.n
-        var = max(self.s2 / self.n - mean_d**2, 0.0)
+        if counted is not None:
+            values, counts = counted
+            if int(np.sum(counts)) != self.n:
+                raise ValueError(f"region '{self.name}': {int(np.sum(counts))} counted values "
+                                 f"for {self.n} valid values seen")
+            std, (p05, p95) = counted_statistics(values, counts, (5, 95))
+        else:
+            std = float(np.sqrt(max(self.s2 / self.n - mean_d**2, 0.0)))
+            p05, p95 = self.percentile(5), self.percentile(95)
         return {"name": self.name, "pixels": self.pixels, "valid_values": self.n,
                 "min_c": self.min, "max_c": self.max, "mean_c": mean_d + self.shift,
-                "std_c": float(np.sqrt(var)),
-                "p05_c": self.percentile(5), "p95_c": self.percentile(95),
+                "std_c": std, "p05_c": p05, "p95_c": p95,
                 "min_at": self.min_at, "max_at": self.max_at, "frames": self.frames}
+
+
+def counted_statistics(values, counts, percentiles=(5, 95)):
+    """Standard deviation and percentiles of a multiset given as distinct values and
+    their counts (value ``values[j]`` occurs ``counts[j]`` times), exactly as numpy
+    computes them on the expanded float64 array.
+
+    Percentiles follow ``numpy.percentile``'s default (linear) method, Hyndman & Fan
+    (1996) definition 7: virtual rank h = (n - 1) q / 100 and linear interpolation
+    between the order statistics of ranks floor(h) and floor(h) + 1, written as numpy
+    writes it (from the nearer end). The standard deviation is the population one
+    (``numpy.std``, ddof 0), about the multiset's mean.
+
+    Parameters
+    ----------
+    values : array_like of float
+        Distinct or repeated values (any order); non-finite values must have count 0.
+    counts : array_like of int
+    percentiles : sequence of float in [0, 100]
+
+    Returns
+    -------
+    (float, list of float)
+        Standard deviation and the percentiles; (None, [None, ...]) for no values.
+
+    References
+    ----------
+    .. [1] R. J. Hyndman, Y. Fan, "Sample quantiles in statistical packages",
+       The American Statistician 50(4), 361-365 (1996), doi:10.2307/2684934.
+    """
+    v = np.asarray(values, np.float64).ravel()
+    c = np.asarray(counts, np.int64).ravel()
+    use = c > 0
+    v, c = v[use], c[use]
+    n = int(c.sum())
+    if n == 0:
+        return None, [None] * len(percentiles)
+    order = np.argsort(v, kind="stable")
+    v, c = v[order], c[order]
+    mean = float(np.dot(c, v)) / n
+    std = float(np.sqrt(np.dot(c, (v - mean) ** 2) / n))
+    cum = np.cumsum(c)
+    out = []
+    for q in percentiles:
+        h = (n - 1) * (float(q) / 100.0)
+        i = int(np.floor(h))
+        gamma = h - i
+        a, b = v[np.searchsorted(cum, [i, min(i + 1, n - 1)], side="right")]
+        diff = b - a
+        out.append(float(b - diff * (1 - gamma) if gamma >= 0.5 else a + diff * gamma))
+    return std, out
 
 
 def _f(x):

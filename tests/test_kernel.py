@@ -80,3 +80,71 @@ def test_tables_pickle_and_give_the_same_numbers(scene):
         t = _tables(scene, per_pixel)
         t2 = pickle.loads(pickle.dumps(t))
         np.testing.assert_array_equal(correct(raw, t).temperature_c, correct(raw, t2).temperature_c)
+
+
+def _region_masks(shape):
+    r, c = np.mgrid[0:shape[0], 0:shape[1]]
+    return [(r >= 3) & (r < 9) & (c >= 2) & (c < 12),            # cuts across all three labels
+            (r - 6) ** 2 + (c - 8) ** 2 <= 16,                     # overlaps the first
+            c >= 14]
+
+
+def test_tally_groups_split_labels_and_regions(scene):
+    """Every tally group has one label and one region membership, and every region is a
+    union of whole groups (what the exact region histograms rest on)."""
+    from irpipe.kernel import tally_groups
+
+    raw, truth, labels, eps_values, model = scene
+    masks = _region_masks(labels.shape)
+    g = tally_groups(labels, masks, labels.shape, 3, 65536)
+    gi, gl = g["group_index"], g["group_label"]
+    assert g["groups_split_regions"] and gi.shape == labels.shape
+    for k in range(gl.size):
+        sel = gi == k
+        assert sel.any() and np.all(labels[sel] == gl[k])
+        for m in masks:
+            assert m[sel].all() or not m[sel].any()
+    # as many groups as distinct (label, membership) combinations
+    combos = {(int(labels[i, j]),) + tuple(bool(m[i, j]) for m in masks) for i in range(12) for j in range(16)}
+    assert gl.size == len(combos)
+    # the wide-key path (many regions) gives the same partition
+    many = masks + [np.zeros(labels.shape, bool)] * 30
+    g2 = tally_groups(labels, many, labels.shape, 3, 65536)
+    assert g2["group_label"].size == gl.size
+    pairs = set(zip(gi.ravel().tolist(), g2["group_index"].ravel().tolist()))
+    assert len(pairs) == gl.size                                   # one-to-one
+    # too many counters: the groups stay the labels
+    assert tally_groups(labels, masks, labels.shape, 3, 1 << 22)["group_index"] is None
+
+
+def test_group_counts_give_each_region_its_exact_values(scene):
+    """Folding a region's (group, raw) counts through the table gives exactly the
+    multiset of the region's corrected temperatures (numpy over the kernel's output)."""
+    from irpipe.kernel import count_values
+    from irpipe.regions import counted_statistics
+
+    raw, truth, labels, eps_values, model = scene
+    field = EmissivityField(index=labels, values=eps_values, description="labels")
+    masks = _region_masks(labels.shape)
+    t = build_tables(input="counts", calibration={"offset_counts": OFFSET, "gain": GAIN}, model=model,
+                     air_temperature_k=T_AIR, reflected_temperature_k=T_REFL, dtype=raw.dtype,
+                     emissivity_field=field, shape=raw.shape[1:], regions=masks)
+    res = correct(raw, t, count=True)
+    # grouping changes no temperature
+    np.testing.assert_array_equal(res.temperature_c, correct(raw, _tables(scene, False)).temperature_c)
+    a, h = res.value_counts
+    a2, h2 = count_values(raw, t)                                  # the cluster workers' count
+    assert a2 == a
+    np.testing.assert_array_equal(h2, h)
+    values = t.group_rows(t.lut_c)[:, a:a + h.shape[1]]
+    for m in masks:
+        groups = np.unique(t.group_index[m])
+        c, v = h[groups], values[groups]
+        use = (c > 0) & np.isfinite(v)
+        want = res.temperature_c[:, m]
+        want = want[np.isfinite(want)].astype(np.float64)
+        std, (p05, p95) = counted_statistics(v[use], c[use], (5, 95))
+        assert int(c[use].sum()) == want.size
+        # numpy.percentile (linear) and numpy.std: equal to the last bit or nearly
+        assert p05 == np.percentile(want, 5) and p95 == np.percentile(want, 95)
+        assert std == pytest.approx(want.std(), rel=1e-12)

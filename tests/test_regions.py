@@ -71,3 +71,24 @@ def test_ellipse_spellings(tmp_path, linear_camera):
     res = run(tmp_path / "c.yaml", tmp_path / "o", write_report=False)
     px = [r["pixels"] for r in res.report["stacks"][0]["regions"]]
     assert px[0] == px[1] == px[2] == int(ellipse_mask((30, 40), (15, 20), (6, 9)).sum())
+
+
+def test_counted_statistics_equal_numpy_on_the_expanded_values():
+    """Percentiles (numpy.percentile, linear method = Hyndman & Fan 1996 definition 7) and
+    the population standard deviation (numpy.std) of a multiset given as values and
+    counts, against numpy on the expanded array; values unsorted, repeated, with zero
+    counts and NaN entries that have no count."""
+    from irpipe.regions import counted_statistics
+
+    rng = np.random.default_rng(11)
+    values = rng.normal(12.0, 3.0, 400).astype(np.float32)
+    values[::7] = values[3]                                     # repeated values
+    counts = rng.integers(0, 50, values.size)
+    values[5], counts[5] = np.nan, 0                            # invalid entries carry no count
+    expanded = np.repeat(values.astype(np.float64), counts)
+    qs = (0, 5, 25, 50, 95, 99.9, 100)
+    std, got = counted_statistics(values, counts, qs)
+    for q, g in zip(qs, got):
+        assert g == np.percentile(expanded, q), q
+    assert std == pytest.approx(expanded.std(), rel=1e-12)
+    assert counted_statistics([1.0], [0]) == (None, [None, None])

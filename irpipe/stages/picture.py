@@ -3,8 +3,8 @@ frame-averaged temperature image, the first frame, and the histogram of all vali
 of all frames (``irpipe.regions.picture_bins``).
 
 With the radiometric stage's lookup plan every temperature is one entry of its table, so
-the histogram is that stage's count of each (label, raw value) entry folded through the
-table once at the end: the same bins as binning every pixel, at no per-pixel cost here.
+the histogram is that stage's count of each (tally group, raw value) entry folded through
+the table once at the end: the same bins as binning every pixel, at no per-pixel cost here.
 Otherwise the valid values of each chunk are binned."""
 from __future__ import annotations
 
@@ -45,7 +45,7 @@ class PictureStage(Stage):
 
     def finish(self, ctx):
         if ctx.lookup_counts is not None:
-            counts, values = ctx.lookup_counts, ctx.tables.lut_c
+            counts, values = ctx.lookup_counts, ctx.tables.group_rows(ctx.tables.lut_c)
             use = (counts > 0) & np.isfinite(values)
             if use.any():
                 self.hist += np.bincount(picture_bins(values[use]), weights=counts[use],

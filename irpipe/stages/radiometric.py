@@ -4,7 +4,7 @@ Linearisation (calibration model or apparent-temperature export) and the measure
 equation in one pass, by the pure kernel ``irpipe.kernel`` (its module docstring explains
 the lookup and per-pixel plans). This stage builds the stack's frozen tables once, calls
 the kernel per chunk and keeps the per-stack tallies: invalid pixels by reason, the
-(label, raw value) counts of the lookup plan and the reflector method's per-frame series.
+(tally group, raw value) counts of the lookup plan and the reflector method's per-frame series.
 """
 from __future__ import annotations
 
@@ -16,15 +16,17 @@ from ..kernel import Window, build_tables, correct, correct_signal
 from .base import Stage
 
 
-def stack_tables(ctx):
-    """The kernel's tables for a prepared stack context."""
+def stack_tables(ctx, regions=()):
+    """The kernel's tables for a prepared stack context (``regions``: masks that split the
+    lookup plan's tally groups, see ``irpipe.kernel.tally_groups``)."""
     return build_tables(input=ctx.camera_cfg["input"], calibration=ctx.calibration, model=ctx.model,
                         air_temperature_k=ctx.conditions["air_temperature_c"] + ZERO_CELSIUS,
                         reflected_temperature_k=ctx.reflected_temperature_k, dtype=ctx.dtype,
                         emissivity_field=ctx.emissivity, shape=ctx.shape[1:],
                         saturation=ctx.camera_cfg.get("saturation"), nuc=ctx.nuc,
                         reflector_mask=ctx.reflector_mask, reflector_emissivity=ctx.reflector_emissivity,
-                        per_pixel=ctx.alignment is not None)    # aligned stacks
+                        per_pixel=ctx.alignment is not None,     # aligned stacks
+                        regions=regions)
 
 
 class RadiometricStage(Stage):
@@ -36,16 +38,18 @@ class RadiometricStage(Stage):
     def start(self, ctx):
         # which per-pixel inputs later stages read (set by build_chain from their `requires`)
         wanted = getattr(self, "consumers", frozenset())
-        self.tables = ctx.tables = stack_tables(ctx)
+        # the (tally group, raw) counts of every chunk give the picture's histogram and
+        # every region's histogram exactly (groups split by the regions)
+        self.count = "ctx.lookup_counts" in wanted
+        regions = list(ctx.masks.values()) if self.count else ()
+        self.tables = ctx.tables = stack_tables(ctx, regions)
         self.want_signal = "chunk.signal" in wanted
         self.want_index = "chunk.lookup_index" in wanted
-        # the (label, raw) counts of every chunk give the picture's histogram exactly
-        self.count = "ctx.lookup_counts" in wanted
         self.window = Window()
         ctx.invalid = {v: 0 for v in REASONS.values()}
         ctx.report["plan"] = self.tables.plan
         if self.tables.lookup:
-            ctx.lookup_counts = np.zeros(self.tables.lut_c.shape, np.int64)
+            ctx.lookup_counts = np.zeros((self.tables.n_groups, self.tables.n_values), np.int64)
 
     def process(self, chunk, ctx):
         if chunk.aligned_signal is not None:     # linearised and resampled by the align stage

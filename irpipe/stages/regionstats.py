@@ -1,27 +1,52 @@
 """Region statistics stage: streaming min/max/mean/std/percentiles per region, over the
-whole stack and per frame (``irpipe.regions.RegionAccumulator``). Percentiles come from
-every frame at any stack length, within half a histogram bin of the exact value
+whole stack and per frame (``irpipe.regions.RegionAccumulator``).
+
+With the radiometric stage's lookup plan every region is a union of tally groups
+(``irpipe.kernel.tally_groups``), so the stage's (group, raw value) counts, folded through
+the table, are the region's exact histogram: the standard deviation and the percentiles
+come from them as numpy computes them on all values, and per chunk only the per-frame
+minimum, maximum and mean are taken. Otherwise (per-pixel plan, cluster runs) the values
+are binned as they stream, and the percentiles are within half a bin of the exact value
 (``irpipe.defaults.STATISTICS_BIN_K``)."""
 from __future__ import annotations
+
+import numpy as np
 
 from ..regions import RegionAccumulator
 from .base import Stage
 
 
+def _counted(ctx):
+    """Whether the stack's tally gives every region's histogram."""
+    t = ctx.tables
+    return ctx.lookup_counts is not None and t is not None and t.lookup and t.groups_split_regions
+
+
 class RegionStatsStage(Stage):
     name = "region_stats"
-    requires = ("chunk.temperature_c",)
+    requires = ("chunk.temperature_c", "ctx.lookup_counts", "ctx.tables")
     provides = ("report.regions",)
 
     def start(self, ctx):
         self.acc = [RegionAccumulator(n, m) for n, m in ctx.masks.items()]
 
     def process(self, chunk, ctx):
+        binned = not _counted(ctx)
         for a in self.acc:
-            a.update(chunk.temperature_c, chunk.first)
+            a.update(chunk.temperature_c, chunk.first, binned=binned)
 
     def finish(self, ctx):
-        regions = [a.result() for a in self.acc]
+        if _counted(ctx):
+            t = ctx.tables
+            values = t.group_rows(t.lut_c)                 # (groups, raw values) [C], NaN invalid
+            regions = []
+            for a in self.acc:
+                groups = np.unique(t.group_index[a.mask])
+                counts = ctx.lookup_counts[groups]
+                use = (counts > 0) & np.isfinite(values[groups])
+                regions.append(a.result(counted=(values[groups][use], counts[use])))
+        else:
+            regions = [a.result() for a in self.acc]
         # per-region figures of the uncertainty stage, which runs before this one
         for r in regions:
             r.update(ctx.region_uncertainty.get(r["name"], {}))
