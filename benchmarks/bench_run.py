@@ -13,10 +13,17 @@ folder, then times, each in a fresh Python subprocess:
 for a small and a large stack (100 and 600 frames by default). The per-frame cost is
 (t_large - t_small) / (frames_large - frames_small), which removes start-up (interpreter,
 imports, tables) from the comparison; the whole-run ratio keeps it. Peak RSS is each
-subprocess's own maximum resident set (``os.wait4``). ``irpipe run`` makes its outputs
-durable (fsync before the atomic rename) while the floor leaves its output in the page
-cache; ``os.sync()`` before each timed process keeps one run's write-back out of the
-next one's time.
+subprocess's own maximum resident set (``os.wait4``). ``os.sync()`` before each timed
+process keeps one run's write-back out of the next one's time.
+
+Both commands write into new files: each one's earlier output is deleted, and the
+timed process starts ``PAUSE_S`` seconds later. On a virtual machine whose guest hands
+freed pages back to the host (free page reporting, after about 2 s), filling page-cache
+pages freed a moment ago is about ten times faster than filling new ones (measured here:
+0.19 s against 2.3 s for 800 MB). Without this, the floor, which overwrites its file in
+place, always refilled just-freed pages, while the run, which writes a temporary file and
+renames it over its earlier output only when it succeeds, never did: up to 2.5 ms per
+frame of the difference was this effect, not work.
 
     python benchmarks/bench_run.py [--frames-small 100] [--frames-large 600] [--keep]
 
@@ -178,13 +185,26 @@ def write_config(folder: Path, stack: Path, report=True):
     return cfg
 
 
-def timed(cmd, env):
+#: pause between deleting a command's earlier output and timing it [s] (see the docstring)
+PAUSE_S = 3.0
+
+
+def timed(cmd, env, remove=()):
     """Wall time [s] and peak RSS [MB] of one subprocess (its own ru_maxrss, via wait4).
 
-    Dirty pages of earlier runs are written out first (``os.sync``), so that no run pays
-    for the write-back of another one's output."""
+    ``remove``: the command's earlier outputs (files or folders), deleted first, so that
+    it writes new files like every other timed command (``PAUSE_S``). Dirty pages of
+    earlier runs are written out first (``os.sync``), so that no run pays for the
+    write-back of another one's output."""
+    for p in map(Path, remove):
+        if p.is_dir():
+            shutil.rmtree(p)
+        elif p.exists():
+            p.unlink()
     if hasattr(os, "sync"):
         os.sync()
+    if remove:
+        time.sleep(PAUSE_S)
     with tempfile.TemporaryFile() as err:
         t0 = time.perf_counter()
         p = subprocess.Popen(cmd, env=env, stdout=subprocess.DEVNULL, stderr=err)
@@ -232,9 +252,10 @@ def main(argv=None):
                        "--quiet"]
             floor_cmd = [sys.executable, "-c", FLOOR, str(stack), str(folder / f"floor_{n}.tif")]
             best = {}
+            outputs = {"floor": [folder / f"floor_{n}.tif"], "run": [folder / f"out_{n}"]}
             for _ in range(a.repeat):
                 for kind, cmd in (("floor", floor_cmd), ("run", run_cmd)):
-                    dt, rss = timed(cmd, env)
+                    dt, rss = timed(cmd, env, outputs[kind])
                     if kind not in best or dt < best[kind][0]:
                         best[kind] = (dt, rss)
             res[n] = {k: {"seconds": round(v[0], 3), "peak_rss_mb": round(v[1], 1)} for k, v in best.items()}

@@ -29,6 +29,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .buffers import BufferPool
 from .constants import ZERO_CELSIUS
 from .correction import INVALID_INPUT, NON_PHYSICAL, OUT_OF_RANGE, REASONS, SATURATED, VALID
 from .errors import InputDataError
@@ -240,6 +241,8 @@ class Window:
     bad: np.ndarray | None = None
     bad_any: bool = False
     offsets: object = None
+    #: output buffers of the chunks, reused once no stage holds them (``irpipe.buffers``)
+    pool: BufferPool = field(default_factory=BufferPool)
 
     def fit(self, tables: PixelTables, lo: int, hi: int):
         if self.bounds is not None and lo >= self.bounds[0] and hi <= self.bounds[1]:
@@ -320,7 +323,7 @@ def _correct_lookup(raw, t: PixelTables, want_index, count, window):
         return KernelResult(temp, inv, lookup_index=idx, value_counts=(0, counts))
     lo, hi = int(raw.min()), int(raw.max())
     _, _, a, span = window.fit(t, lo, hi)
-    out = np.empty(raw.shape, np.float32)
+    out = window.pool.empty(raw.shape, np.float32)       # every element is written below
     hist = _sweep(raw, window, nl * span, out, count)
     if hist is None and window.bad_any and np.isnan(out).any():
         # every invalid table entry is NaN: only a chunk with NaN needs counting by reason

@@ -18,6 +18,7 @@ import queue
 import sys
 import threading
 
+from .buffers import BufferPool
 from .io import StackReader
 from .stages.base import Chunk, processes_chunks
 
@@ -34,9 +35,12 @@ def local_chunks(ctx, size=None):
     the file is closed when it ends or is closed)."""
     size = size or ctx.frame_chunk
     n = ctx.shape[0]
+    pool = BufferPool()                 # read buffers, reused once no stage holds them
     with StackReader(ctx.stack["path"], f"stack '{ctx.name}'") as reader:
         for first in range(0, n, size):
-            yield Chunk(first, reader.read(first, min(n, first + size)))
+            stop = min(n, first + size)
+            out = pool.empty((stop - first,) + tuple(ctx.shape[1:]), reader.dtype)
+            yield Chunk(first, reader.read(first, stop, out=out))
 
 
 def abort_chain(chain, ctx):

@@ -14,7 +14,8 @@ ROOT = Path(__file__).resolve().parent.parent / "irpipe"
 #: layer of each module (lower number = lower layer); a module may import its own layer
 #: or lower ones. Packages are named by their dotted prefix.
 LAYERS = [
-    ("base", ["irpipe", "irpipe.constants", "irpipe.errors", "irpipe.defaults", "irpipe.io", "irpipe.config"]),
+    ("base", ["irpipe", "irpipe.constants", "irpipe.errors", "irpipe.defaults", "irpipe.buffers", "irpipe.io",
+              "irpipe.config"]),
     ("physics", ["irpipe.radiometry", "irpipe.calibration", "irpipe.atmosphere", "irpipe.humidity",
                  "irpipe.emissivity", "irpipe.correction", "irpipe.modeltables", "irpipe.regions", "irpipe.findings",
                  "irpipe.uncertainty", "irpipe.fieldmethods", "irpipe.kernel", "irpipe.heatflow",
