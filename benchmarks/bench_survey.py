@@ -29,8 +29,10 @@ Also measured, on the large survey:
   page after it, read from the page's own performance timing. When the report is an index
   page plus stack pages, both the index and the first stack page are timed.
 
-``irpipe run`` makes its outputs durable (fsync before the atomic rename) while the floor
-leaves its output in the page cache; ``os.sync()`` before each timed process keeps one
+Both commands write into new files: each one's earlier outputs are deleted and the timed
+process starts ``PAUSE_S`` seconds later, as in bench_run.py (whose docstring explains why:
+on this kind of virtual machine, refilling page-cache pages freed a moment ago is about ten
+times faster than filling new ones). ``os.sync()`` before each timed process keeps one
 run's write-back out of the next one's time. Keep the other core free while measuring.
 
     python benchmarks/bench_survey.py [--stacks 200] [--stacks-small 20] [--repeat 3]
@@ -183,14 +185,27 @@ def _tree_memory(pid):
     return rss, pss
 
 
-def timed(cmd, env):
+#: pause between deleting a command's earlier outputs and timing it [s] (bench_run.py)
+PAUSE_S = 3.0
+
+
+def timed(cmd, env, remove=()):
     """Wall time [s], peak summed RSS and peak summed PSS of the process tree [MB] of one
     subprocess.
 
-    Dirty pages of earlier runs are written out first (``os.sync``), so that no run pays
-    for the write-back of another one's output."""
+    ``remove``: the command's earlier outputs (files or folders), deleted first so that it
+    writes new files, ``PAUSE_S`` before it starts. Dirty pages of earlier runs are
+    written out first (``os.sync``), so that no run pays for the write-back of another
+    one's output."""
+    for p in map(Path, remove):
+        if p.is_dir():
+            shutil.rmtree(p)
+        elif p.exists():
+            p.unlink()
     if hasattr(os, "sync"):
         os.sync()
+    if remove:
+        time.sleep(PAUSE_S)
     peak = [0, 0]
     with tempfile.TemporaryFile() as err:
         t0 = time.perf_counter()
@@ -302,12 +317,11 @@ def main(argv=None):
             for k in range(n):
                 pairs += [str(folder / f"s{k:04d}.tif"), str(folder / f"floor_{k:04d}.tif")]
             floor_cmd = [sys.executable, "-c", FLOOR, *pairs]
+            outputs = {"floor": pairs[1::2], "run": [folder / f"out_{n}"]}
             best = {}
             for _ in range(a.repeat):
                 for kind, cmd in (("floor", floor_cmd), ("run", run_cmd)):
-                    if kind == "run":
-                        shutil.rmtree(folder / f"out_{n}", ignore_errors=True)
-                    dt, rss, pss = timed(cmd, env)
+                    dt, rss, pss = timed(cmd, env, outputs[kind])
                     if kind not in best or dt < best[kind][0]:
                         best[kind] = (dt, rss)
                     best[kind + "_rss"] = max(best.get(kind + "_rss", 0.0), rss)

@@ -16,6 +16,36 @@ import sys
 
 import numpy as np
 
+_TUNED = []
+
+
+def tune_allocator():
+    """Settings of the C allocator (glibc ``mallopt``) for streaming large arrays; called
+    once per process before a run (idempotent). Linux/glibc only; elsewhere nothing.
+
+    * One malloc arena (``M_ARENA_MAX`` 1). glibc gives threads their own arenas, and the
+      blocks freed in them were not handed back between the stacks of a survey: one
+      process's resident size grew from 324 to 504 MB over 60 stacks of 4 frames, and
+      stayed at 285-295 MB with one arena (measured on the survey benchmark's stacks). The
+      large allocations here are few, so the arena's lock costs nothing measurable.
+    * Large blocks from the heap instead of fresh memory maps, and no trimming of the heap
+      top on every free (mmap and trim thresholds, top pad): freed chunk buffers are
+      reused instead of being faulted and zero-filled again. ``malloc_trim`` after each
+      stack of a survey gives the memory back (``irpipe.pipeline``)."""
+    if _TUNED or not sys.platform.startswith("linux"):
+        return
+    _TUNED.append(True)
+    try:
+        import ctypes
+        libc = ctypes.CDLL("libc.so.6")
+        M_TRIM_THRESHOLD, M_TOP_PAD, M_MMAP_THRESHOLD, M_ARENA_MAX = -1, -2, -3, -8
+        libc.mallopt(M_ARENA_MAX, 1)
+        libc.mallopt(M_MMAP_THRESHOLD, 1 << 30)
+        libc.mallopt(M_TRIM_THRESHOLD, (1 << 31) - 1)
+        libc.mallopt(M_TOP_PAD, 256 << 20)
+    except (OSError, AttributeError):
+        pass
+
 
 class BufferPool:
     """Buffers of given shapes and dtypes, reused once no one else holds them.

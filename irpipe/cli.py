@@ -78,27 +78,6 @@ def main(argv=None):
         return 1
 
 
-def _tune_allocator():
-    """Keep large array buffers in the process heap instead of fresh memory maps.
-
-    Each chunk of frames allocates and frees tens of MB of arrays; by default glibc maps
-    every such block anew, so each chunk pays page faults and zero-filling in the kernel
-    (measured: about a third of the per-frame cost). Raising the mmap and trim thresholds
-    (glibc ``mallopt``) lets freed blocks be reused; peak memory stays bounded by the
-    chunks in flight. Linux/glibc only; elsewhere nothing happens."""
-    if not sys.platform.startswith("linux"):
-        return
-    try:
-        import ctypes
-        libc = ctypes.CDLL("libc.so.6")
-        M_TRIM_THRESHOLD, M_TOP_PAD, M_MMAP_THRESHOLD = -1, -2, -3
-        libc.mallopt(M_MMAP_THRESHOLD, 1 << 30)
-        libc.mallopt(M_TRIM_THRESHOLD, (1 << 31) - 1)
-        libc.mallopt(M_TOP_PAD, 256 << 20)
-    except (OSError, AttributeError):
-        pass
-
-
 def _dispatch(args):
     if args.command == "schema":
         from .config import json_schema
@@ -121,7 +100,8 @@ def _dispatch(args):
         print(f"irpipe: page written to {dest} (open it in a browser; it needs no server or network)")
         return 0
     if args.command in ("run", "demo"):
-        _tune_allocator()
+        from .buffers import tune_allocator
+        tune_allocator()
     if args.command == "run":
         if args.jobs is not None and (args.workers or args.scheduler):
             from .errors import ConfigError

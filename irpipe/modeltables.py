@@ -18,7 +18,7 @@ nearly all of a model's cost. So this module keeps, per process:
   and temperature range (``radiometry.PlanckTable``); a new path (distance, humidity,
   air temperature) then costs one weighted sum over the spectral grid. Least recently
   used tables are dropped beyond ``PLANCK_CACHE_BYTES`` (a 7.5-14 um band of 1301
-  nodes takes 171 MB); a table larger than that alone is not kept.
+  nodes takes 85 MB in float32); a table larger than that alone is not kept.
 * ``measurement_tables(camera, transmittance, t_range)``: the signal and path tables
   per (camera, transmittance, range), so stacks with equal conditions share them (the
   ``MAX_PATH_TABLES`` most recently used, about 0.5 MB each with their splines: room for
@@ -97,7 +97,7 @@ def planck_table(response, t_range, n=4096):
         with the same result).
     """
     t0, t1 = float(t_range[0]), float(t_range[1])
-    size = 4 * int(n) * response.wavelength.size * 8
+    size = 4 * int(n) * response.wavelength.size * 4        # float32 (radiometry._planck_blocks)
     if not _state["enabled"] or size > PLANCK_CACHE_BYTES:
         return None
     key = (_digest(response.wavelength), t0, t1, int(n))

@@ -191,17 +191,25 @@ class SpectralResponse:
 
         Band integrals of the returned ``PlanckTable`` under any weighting cost one
         weighted sum each and equal, bit for bit, those computed from the temperatures.
-        Its size is ``temperature.size * K * 8`` bytes.
+        Its size is ``temperature.size * K * 4`` bytes (float32, see ``_planck_blocks``).
         """
         t = np.asarray(temperature, dtype=float)
         return PlanckTable(self.wavelength, t, tuple(self._planck_blocks(t.reshape(-1))))
 
     def _planck_blocks(self, flat):
-        """(slice, L_lambda of shape (n, K)) over a flat temperature array, in blocks."""
+        """(slice, L_lambda of shape (n, K), float32) over a flat temperature array, in blocks.
+
+        The spectral radiances are rounded to float32 (relative 6e-8 each) before the
+        weighted sum, which is taken in float64: band integrals over the response's K
+        nodes then move by about 1e-9 relative (the roundings are independent and average
+        out), about 1e-7 K in temperature, below the float32 step of the corrected
+        temperatures, while a kept table (``planck_table``) takes half the memory (85
+        instead of 171 MB for a 7.5-14 um band, in every process of a survey). Kept or
+        not, the blocks are the same, so the numbers are too."""
         # blocks keep the (T, lambda) temporary small
         blk = max(1, 2_000_000 // self.wavelength.size)
         for s in range(0, flat.size, blk):
-            yield slice(s, s + blk), planck_radiance(self.wavelength[None, :], flat[s:s + blk, None])
+            yield slice(s, s + blk), planck_radiance(self.wavelength[None, :], flat[s:s + blk, None]).astype(np.float32)
 
     def _integrate(self, temperature, w):
         """sum_k w_k L_lambda(lambda_k, T) for each T, w of shape (K,) or (K, J): the one
@@ -218,7 +226,7 @@ class SpectralResponse:
             blocks = self._planck_blocks(t.reshape(-1))
         out = np.empty((size,) + w.shape[1:])
         for sl, lt in blocks:
-            out[sl] = lt @ w
+            out[sl] = lt.astype(np.float64) @ w
         return shape, out
 
 

@@ -79,7 +79,9 @@ def test_inverse_table_accuracy_against_root_finder():
     t = rng.uniform(223.15, 873.15, 400)
     s = r.band_radiance(t)
     ref = tab.inverse_exact(s)
-    assert np.max(np.abs(ref - t)) < 1e-7                       # root finder recovers truth
+    # root finder recovers truth: within 3e-7 K, the float32 rounding of the spectral
+    # radiances before the float64 band sum (radiometry._planck_blocks: ~1e-9 relative)
+    assert np.max(np.abs(ref - t)) < 3e-7
     assert np.max(np.abs(tab.inverse(s) - ref)) < 1e-3          # < 1 mK, float64
     assert np.max(np.abs(tab.inverse(s.astype(np.float32), dtype=np.float32) - ref)) < 1e-3  # float32
     # out of range and non-physical signals give NaN, not a number
