@@ -135,7 +135,17 @@ def _worker_state(config_path):
     if _WORKER.get("key") != key:
         cfg = load_config(config_path)
         _WORKER.update(key=key, cfg=cfg, cameras={}, materials=load_materials(cfg))
+        _freeze_heap()
     return _WORKER["cfg"], _WORKER["cameras"], _WORKER["materials"]
+
+
+def _freeze_heap():
+    """Exempt every object alive now (modules, config, material library) from the
+    collector's scans (``gc.freeze``): the full collection after each stack of a survey
+    (``_release_heap``) then looks at that stack's objects only (measured: 19 ms per stack
+    for a full scan of the imported modules' objects, once per stack)."""
+    import gc
+    gc.freeze()
 
 
 def _release_heap():
@@ -249,6 +259,7 @@ def run(config_path, out_dir=None, *, resume=False, keep_going=False, quiet=True
                 continue
         todo.append(("run", i, None))
     checked = None                      # keep nothing of the check: each stack is prepared anew
+    _freeze_heap()
 
     def settle(o: _Outcome):
         """Record a finished stack in config order; raise when the run must stop."""

@@ -86,7 +86,11 @@ def _update_one_finite(best, best_frame, chunk, value, first_frame, sign):
         for j in range(f - 1, -1, -1):
             np.equal(flat[j], v, out=eq)
             np.copyto(kk, j, where=eq)
-        k = kk[where]
+        k = kk if where.size == v.size else kk[where]
+    if where.size == v.size:            # every pixel (a stack's first chunk): no gather
+        best.reshape(-1)[:] = v
+        best_frame.reshape(-1)[:] = first_frame + k
+        return
     best.reshape(-1)[where] = v[where]
     best_frame.reshape(-1)[where] = first_frame + k
 
