@@ -346,9 +346,22 @@ def local_linear_smooth(image, mask, radius=2):
     (a two-dimensional Savitzky-Golay filter of order 1 on a masked domain: A. Savitzky,
     M. J. E. Golay, Anal. Chem. 36, 1627 (1964), doi:10.1021/ac60214a047).
     """
+    m = np.asarray(mask, bool) & np.isfinite(image)
+    out = np.full(np.shape(image), np.nan)
+    rows, cols = np.flatnonzero(m.any(axis=1)), np.flatnonzero(m.any(axis=0))
+    if rows.size == 0:
+        return out
+    # only the mask's bounding box plus the window's reach takes part: outside it every
+    # weight and value is zero, so the sums (and the result) are those of the whole image
+    r0, r1 = max(0, rows[0] - radius), min(m.shape[0], rows[-1] + radius + 1)
+    c0, c1 = max(0, cols[0] - radius), min(m.shape[1], cols[-1] + radius + 1)
+    out[r0:r1, c0:c1] = _local_linear_smooth(np.asarray(image)[r0:r1, c0:c1], m[r0:r1, c0:c1], radius)
+    return out
+
+
+def _local_linear_smooth(image, m, radius):
     from scipy import ndimage
 
-    m = np.asarray(mask, bool) & np.isfinite(image)
     w = m.astype(np.float64)
     z = np.where(m, image, 0.0).astype(np.float64)
     k = np.arange(-radius, radius + 1, dtype=np.float64)
