@@ -142,10 +142,7 @@ def _plain_nodes(camera, t_range, t_nodes):
     s_nodes = _plain.get(key) if _state["enabled"] else None
     if s_nodes is None:
         if camera.kind == "band":
-            # the same two-column product as a spectral path's tables, so that S is the
-            # same to the bit as the one of the stack's own model
-            pt = planck_table(camera.response, t_range)
-            s_nodes = camera.response.band_radiances(t_nodes if pt is None else pt, [None, None])[0]
+            s_nodes = _plain_band(camera.response, t_range, t_nodes)
         else:
             s_nodes = camera.signal(t_nodes)
         if _state["enabled"]:
@@ -153,6 +150,26 @@ def _plain_nodes(camera, t_range, t_nodes):
             while len(_plain) > MAX_SIGNAL_TABLES:
                 _plain.popitem(last=False)
     return s_nodes
+
+
+def _plain_band(response, t_range, t_nodes):
+    """The band radiance L(T) without a path on the table nodes: one single-column sum,
+    the same for every path of the response (kept with the plain signal, ``_plain_nodes``)."""
+    pt = planck_table(response, t_range)
+    return response.band_radiance(t_nodes if pt is None else pt)
+
+
+def _coarse_plain(response, t_range, ptc):
+    """L(T) on the coarse nodes (kept per response and range, like the coarse table)."""
+    key = ("coarse-plain", _digest(response.wavelength), t_range)
+    l_plain = _plain.get(key) if _state["enabled"] else None
+    if l_plain is None:
+        l_plain = response.band_radiance(ptc)
+        if _state["enabled"]:
+            _plain[key] = l_plain
+            while len(_plain) > MAX_SIGNAL_TABLES:
+                _plain.popitem(last=False)
+    return l_plain
 
 
 def _coarse_planck(response, t_range, t_nodes):
@@ -216,7 +233,7 @@ def measurement_tables(camera, transmittance, t_range, path_signal, coarse=False
         band = camera.kind == "band"
         if coarse and tau.ndim == 1:
             ptc = _coarse_planck(r, t_range, t_nodes)
-            l_plain_c, l_tau_c = r.band_radiances(ptc, [None, tau])
+            l_plain_c, l_tau_c = _coarse_plain(r, t_range, ptc), r.band_radiance(ptc, tau)
             inv_c = 1.0 / ptc.temperature
             tau_eff = np.interp(1.0 / t_nodes, inv_c[::-1], (l_tau_c / l_plain_c)[::-1])
             s_nodes = _plain_nodes(camera, t_range, t_nodes)
@@ -229,8 +246,10 @@ def measurement_tables(camera, transmittance, t_range, path_signal, coarse=False
                 s_nodes = camera.signal(t_nodes)
             g_nodes = s_nodes * float(tau)
         else:
+            # L(T) is the same for every path (kept): a new path costs one weighted sum
             pt = planck_table(r, t_range)
-            l_plain, l_tau = r.band_radiances(t_nodes if pt is None else pt, [None, tau])
+            l_plain = _plain_nodes(camera, t_range, t_nodes) if band else _plain_band(r, t_range, t_nodes)
+            l_tau = r.band_radiance(t_nodes if pt is None else pt, tau)
             s_nodes = l_plain if band else camera.signal(t_nodes)
             g_nodes = s_nodes * (l_tau / l_plain)
         tables = (_signal_table(camera.signal, t_range, s_nodes),
