@@ -55,6 +55,11 @@ def _dup(knode, key, path):
     return ConfigError(f"line {knode.start_mark.line + 1}, {dotted}: key given twice; keep one")
 
 
+#: libyaml's parser where PyYAML was built with it (same nodes and marks, about ten times
+#: faster: a survey of 200 stacks took 0.6 s to parse in pure Python), else pure Python
+_LOADER = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
+
+
 def load_yaml(text: str, filename: str = "<config>"):
     """Parse YAML text into plain Python objects plus a map of key paths to (line, col).
 
@@ -62,7 +67,7 @@ def load_yaml(text: str, filename: str = "<config>"):
     """
     loader = None
     try:
-        loader = yaml.SafeLoader(text)
+        loader = _LOADER(text)
         node = loader.get_single_node()
         marks = _Marks()
         if node is None:

@@ -63,19 +63,25 @@ def _update_one(best, best_frame, chunk, finite, first_frame, sign):
     best_frame[better] = first_frame + idx[better]
 
 
-def _update_one_finite(best, best_frame, chunk, value, first_frame, sign):
+def _update_one_finite(best, best_frame, chunk, value, first_frame, sign, fresh=False):
     """As _update_one for a chunk without NaN or inf, given ``value``, its per-pixel
-    extreme: the earliest frame reaching it is searched only where it beats ``best``."""
-    with np.errstate(invalid="ignore"):
-        better = (value > best) if sign > 0 else (value < best)
-    better |= np.isnan(best)
-    where = np.flatnonzero(better)
-    if where.size == 0:
-        return
+    extreme: the earliest frame reaching it is searched only where it beats ``best``
+    (everywhere when the state is ``fresh``: no frame seen yet)."""
     f = chunk.shape[0]
     flat = chunk.reshape(f, -1)
     v = value.reshape(-1)
-    if where.size * 8 < v.size:
+    where = None                        # None: every pixel
+    if not fresh:
+        with np.errstate(invalid="ignore"):
+            better = (value > best) if sign > 0 else (value < best)
+        better |= np.isnan(best)
+        where = np.flatnonzero(better)
+        if where.size == 0:
+            return
+    every = fresh or where.size == v.size
+    if every:
+        where = None
+    if not every and where.size * 8 < v.size:
         # few pixels: gather them and take the first frame equal to the extreme
         sub = np.take(flat, where, axis=1)
         k = (sub == v[where]).argmax(axis=0)
@@ -86,8 +92,8 @@ def _update_one_finite(best, best_frame, chunk, value, first_frame, sign):
         for j in range(f - 1, -1, -1):
             np.equal(flat[j], v, out=eq)
             np.copyto(kk, j, where=eq)
-        k = kk if where.size == v.size else kk[where]
-    if where.size == v.size:            # every pixel (a stack's first chunk): no gather
+        k = kk if every else kk[where]
+    if every:                           # every pixel (a stack's first chunk): no gather
         best.reshape(-1)[:] = v
         best_frame.reshape(-1)[:] = first_frame + k
         return
@@ -140,8 +146,9 @@ def update_extremes(state, chunk_c, first_frame):
     hi = chunk.max(axis=0)          # NaN or inf anywhere shows in hi or lo
     lo = chunk.min(axis=0)
     if np.isfinite(hi).all() and np.isfinite(lo).all():
-        _update_one_finite(state.max_c, state.max_frame, chunk, hi, int(first_frame), +1)
-        _update_one_finite(state.min_c, state.min_frame, chunk, lo, int(first_frame), -1)
+        fresh = not state.n_valid.any()         # no frame seen yet: every pixel is new
+        _update_one_finite(state.max_c, state.max_frame, chunk, hi, int(first_frame), +1, fresh)
+        _update_one_finite(state.min_c, state.min_frame, chunk, lo, int(first_frame), -1, fresh)
         state.n_valid += chunk.shape[0]
         return state
     finite = np.isfinite(chunk)
