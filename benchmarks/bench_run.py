@@ -16,14 +16,10 @@ imports, tables) from the comparison; the whole-run ratio keeps it. Peak RSS is 
 subprocess's own maximum resident set (``os.wait4``). ``os.sync()`` before each timed
 process keeps one run's write-back out of the next one's time.
 
-Both commands write into new files: each one's earlier output is deleted, and the
-timed process starts ``PAUSE_S`` seconds later. On a virtual machine whose guest hands
-freed pages back to the host (free page reporting, after about 2 s), filling page-cache
-pages freed a moment ago is about ten times faster than filling new ones (measured here:
-0.19 s against 2.3 s for 800 MB). Without this, the floor, which overwrites its file in
-place, always refilled just-freed pages, while the run, which writes a temporary file and
-renames it over its earlier output only when it succeeds, never did: up to 2.5 ms per
-frame of the difference was this effect, not work.
+Both commands write into new files: each one's earlier output is deleted, and the timed
+process starts ``benchcommon.PAUSE_S`` seconds later (``benchcommon`` explains why: on this
+kind of virtual machine, refilling just-freed page-cache pages is about ten times faster
+than filling new ones, which had flattered the floor by up to 2.5 ms per frame).
 
     python benchmarks/bench_run.py [--frames-small 100] [--frames-large 600] [--keep]
 
@@ -43,6 +39,8 @@ import time
 from pathlib import Path
 
 import numpy as np
+
+from benchcommon import before_timing
 
 ROOT = Path(__file__).resolve().parent.parent
 ROWS, COLS = 512, 640
@@ -185,26 +183,14 @@ def write_config(folder: Path, stack: Path, report=True):
     return cfg
 
 
-#: pause between deleting a command's earlier output and timing it [s] (see the docstring)
-PAUSE_S = 3.0
-
-
 def timed(cmd, env, remove=()):
     """Wall time [s] and peak RSS [MB] of one subprocess (its own ru_maxrss, via wait4).
 
     ``remove``: the command's earlier outputs (files or folders), deleted first, so that
-    it writes new files like every other timed command (``PAUSE_S``). Dirty pages of
+    it writes new files like every other timed command (``benchcommon``). Dirty pages of
     earlier runs are written out first (``os.sync``), so that no run pays for the
     write-back of another one's output."""
-    for p in map(Path, remove):
-        if p.is_dir():
-            shutil.rmtree(p)
-        elif p.exists():
-            p.unlink()
-    if hasattr(os, "sync"):
-        os.sync()
-    if remove:
-        time.sleep(PAUSE_S)
+    before_timing(remove)
     with tempfile.TemporaryFile() as err:
         t0 = time.perf_counter()
         p = subprocess.Popen(cmd, env=env, stdout=subprocess.DEVNULL, stderr=err)

@@ -30,7 +30,7 @@ Also measured, on the large survey:
   page plus stack pages, both the index and the first stack page are timed.
 
 Both commands write into new files: each one's earlier outputs are deleted and the timed
-process starts ``PAUSE_S`` seconds later, as in bench_run.py (whose docstring explains why:
+process starts ``benchcommon.PAUSE_S`` seconds later (``benchcommon`` explains why:
 on this kind of virtual machine, refilling page-cache pages freed a moment ago is about ten
 times faster than filling new ones). ``os.sync()`` before each timed process keeps one
 run's write-back out of the next one's time. Keep the other core free while measuring.
@@ -56,6 +56,8 @@ import time
 from pathlib import Path
 
 import numpy as np
+
+from benchcommon import before_timing
 
 ROOT = Path(__file__).resolve().parent.parent
 ROWS, COLS, FRAMES = 512, 640, 4
@@ -185,27 +187,15 @@ def _tree_memory(pid):
     return rss, pss
 
 
-#: pause between deleting a command's earlier outputs and timing it [s] (bench_run.py)
-PAUSE_S = 3.0
-
-
 def timed(cmd, env, remove=()):
     """Wall time [s], peak summed RSS and peak summed PSS of the process tree [MB] of one
     subprocess.
 
     ``remove``: the command's earlier outputs (files or folders), deleted first so that it
-    writes new files, ``PAUSE_S`` before it starts. Dirty pages of earlier runs are
+    writes new files (``benchcommon.before_timing``). Dirty pages of earlier runs are
     written out first (``os.sync``), so that no run pays for the write-back of another
     one's output."""
-    for p in map(Path, remove):
-        if p.is_dir():
-            shutil.rmtree(p)
-        elif p.exists():
-            p.unlink()
-    if hasattr(os, "sync"):
-        os.sync()
-    if remove:
-        time.sleep(PAUSE_S)
+    before_timing(remove)
     peak = [0, 0]
     with tempfile.TemporaryFile() as err:
         t0 = time.perf_counter()

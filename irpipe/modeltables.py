@@ -136,20 +136,24 @@ COARSE_STEP = 16
 _plain: OrderedDict = OrderedDict()
 
 
-def _plain_nodes(camera, t_range, t_nodes):
-    """S(T) of the camera on every table node (path-independent; kept per camera and range)."""
-    key = (_camera_key(camera), t_range)
-    s_nodes = _plain.get(key) if _state["enabled"] else None
-    if s_nodes is None:
-        if camera.kind == "band":
-            s_nodes = _plain_band(camera.response, t_range, t_nodes)
-        else:
-            s_nodes = camera.signal(t_nodes)
+def _kept_plain(key, make):
+    """A path-free array kept under ``key`` (the ``MAX_SIGNAL_TABLES`` most recent), made by
+    ``make()`` when missing or when the caches are disabled."""
+    value = _plain.get(key) if _state["enabled"] else None
+    if value is None:
+        value = make()
         if _state["enabled"]:
-            _plain[key] = s_nodes
+            _plain[key] = value
             while len(_plain) > MAX_SIGNAL_TABLES:
                 _plain.popitem(last=False)
-    return s_nodes
+    return value
+
+
+def _plain_nodes(camera, t_range, t_nodes):
+    """S(T) of the camera on every table node (path-independent; kept per camera and range)."""
+    if camera.kind == "band":
+        return _kept_plain((_camera_key(camera), t_range), lambda: _plain_band(camera.response, t_range, t_nodes))
+    return _kept_plain((_camera_key(camera), t_range), lambda: camera.signal(t_nodes))
 
 
 def _plain_band(response, t_range, t_nodes):
@@ -161,15 +165,7 @@ def _plain_band(response, t_range, t_nodes):
 
 def _coarse_plain(response, t_range, ptc):
     """L(T) on the coarse nodes (kept per response and range, like the coarse table)."""
-    key = ("coarse-plain", _digest(response.wavelength), t_range)
-    l_plain = _plain.get(key) if _state["enabled"] else None
-    if l_plain is None:
-        l_plain = response.band_radiance(ptc)
-        if _state["enabled"]:
-            _plain[key] = l_plain
-            while len(_plain) > MAX_SIGNAL_TABLES:
-                _plain.popitem(last=False)
-    return l_plain
+    return _kept_plain(("coarse-plain", _digest(response.wavelength), t_range), lambda: response.band_radiance(ptc))
 
 
 def _coarse_planck(response, t_range, t_nodes):
