@@ -210,8 +210,8 @@ def tally_groups(label_index, regions, shape, n_labels, n_values):
         return labels_only
     key = np.zeros(shape, np.int64) if label_index is None else label_index.astype(np.int64)
     lb = max(1, int(n_labels - 1).bit_length())            # bits of the label in the key
-    if len(masks) + lb <= 24:
-        # dense: a flag per possible key (at most 16 M), groups numbered in key order
+    if len(masks) + lb <= 20:
+        # dense: a flag per possible key (at most 1 M), groups numbered in key order
         for k, m in enumerate(masks):
             key |= m.astype(np.int64) << np.int64(k + lb)
         flag = np.zeros(int(key.max()) + 1, np.int64)
@@ -219,6 +219,11 @@ def tally_groups(label_index, regions, shape, n_labels, n_values):
         keys = np.flatnonzero(flag)
         inverse = (np.cumsum(flag) - 1)[key.ravel()]
         lab_of_group = keys & ((1 << lb) - 1)
+    elif len(masks) + lb <= 62:
+        for k, m in enumerate(masks):
+            key |= m.astype(np.int64) << np.int64(k + lb)
+        _, first, inverse = np.unique(key.ravel(), return_index=True, return_inverse=True)
+        lab_of_group = key.ravel()[first] & ((1 << lb) - 1)
     else:
         rows = np.concatenate([key.reshape(-1, 1).view(np.uint8),
                                np.packbits(np.stack([m.ravel() for m in masks], 1), axis=1)], 1)
@@ -337,8 +342,11 @@ def _correct_lookup(raw, t: PixelTables, want_index, count, window):
 def _sweep(raw, window, bins, out, tally):
     """The lookup plan's block loop: gather the temperatures into ``out`` (unless None)
     and count the (group, raw value) pairs into ``bins`` counters (when ``tally``)."""
-    # about one frame per call: the index block stays in cache between the gather and the count
-    step = max(1, min(raw.shape[0], (1 << 18) // max(1, raw[0].size)))
+    # about one frame per call, so the index block stays in cache between the gather and
+    # the count; more when the counters are many (each call's bincount fills and adds all
+    # of them: with 64 groups over a wide raw span that would cost more than the pixels)
+    elems = max(1 << 18, min(2 * bins, 1 << 22)) if tally else 1 << 18
+    step = max(1, min(raw.shape[0], elems // max(1, raw[0].size)))
     idx = np.empty((step,) + raw.shape[1:], np.intp)
     hist = np.zeros(bins, np.int64) if tally else None
     for k in range(0, raw.shape[0], step):

@@ -13,6 +13,7 @@ in ``irpipe.report.survey``; their public names stay importable from here.
 """
 from __future__ import annotations
 
+import contextlib
 import sys
 import time
 from dataclasses import dataclass, field
@@ -185,7 +186,7 @@ def _run_one(cfg, cameras, materials, i, out, options, progress=None, want_pictu
         pending = pool.submit(hash_files, stack_inputs(cfg, i))
         try:
             t0 = time.perf_counter()
-            with _one_blas_thread():
+            with _one_blas_thread() if "blas" not in _WORKER else contextlib.nullcontext():
                 ctx = prepare_stack(cfg, i, out, cameras, materials, options)
                 rep = run_stack(ctx, progress)
             rep["seconds"] = round(time.perf_counter() - t0, 3)

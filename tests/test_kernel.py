@@ -107,12 +107,16 @@ def test_tally_groups_split_labels_and_regions(scene):
     # as many groups as distinct (label, membership) combinations
     combos = {(int(labels[i, j]),) + tuple(bool(m[i, j]) for m in masks) for i in range(12) for j in range(16)}
     assert gl.size == len(combos)
-    # the wide-key path (many regions) gives the same partition
-    many = masks + [np.zeros(labels.shape, bool)] * 30
-    g2 = tally_groups(labels, many, labels.shape, 3, 65536)
-    assert g2["group_label"].size == gl.size
-    pairs = set(zip(gi.ravel().tolist(), g2["group_index"].ravel().tolist()))
-    assert len(pairs) == gl.size                                   # one-to-one
+    # the sorted-key path (more regions) and the packed-row path (many regions) give the
+    # same partition and the same labels
+    for extra in (25, 70):
+        many = masks + [np.zeros(labels.shape, bool)] * extra
+        g2 = tally_groups(labels, many, labels.shape, 3, 65536)
+        assert g2["group_label"].size == gl.size
+        pairs = set(zip(gi.ravel().tolist(), g2["group_index"].ravel().tolist()))
+        assert len(pairs) == gl.size                               # one-to-one
+        for a, b in pairs:
+            assert gl[a] == g2["group_label"][b]
     # too many counters: the groups stay the labels
     assert tally_groups(labels, masks, labels.shape, 3, 1 << 22)["group_index"] is None
 
