@@ -165,7 +165,10 @@ class UncertaintyStage(Stage):
             big_u = self.table_flat.take(idx)
             big_u[~valid] = np.nan
             flat_idx = idx.reshape(n, -1)
-            parts = {k: (lambda ii, k=k: self.contrib_flat[k].take(flat_idx[:, ii])) for k in self.inputs}
+
+            def parts(ii):          # the region's table indices, gathered once for all inputs
+                rix = flat_idx[:, ii]
+                return {k: self.contrib_flat[k].take(rix) for k in self.inputs}
         else:
             s = chunk.signal
             refl = chunk.reflected_temperature_k
@@ -179,7 +182,8 @@ class UncertaintyStage(Stage):
                 for k in self.inputs:
                     full[k][f] = contrib.get(k, 0.0)
             big_u[~valid] = np.nan
-            parts = {k: (lambda ii, k=k: full[k].reshape(n, -1)[:, ii]) for k in self.inputs}
+            def parts(ii):
+                return {k: full[k].reshape(n, -1)[:, ii] for k in self.inputs}
         self.writer.write(big_u)
         flat_u = big_u.reshape(n, -1)
         for name, ii in self.regions.items():
@@ -191,8 +195,8 @@ class UncertaintyStage(Stage):
             a["sum"] += float(v[ok].sum())
             a["n"] += int(ok.sum())
             a["max"] = max(a["max"], float(v[ok].max()))
-            for k in self.inputs:
-                c = parts[k](ii).astype(np.float64)
+            for k, c in parts(ii).items():
+                c = c.astype(np.float64)
                 a["sq"][k] += float((c[ok] ** 2).sum())
 
     def finish(self, ctx):
