@@ -317,15 +317,11 @@ def _counts_by_reason(codes_of_values, counts):
 def _correct_lookup(raw, t: PixelTables, want_index, count, window):
     nl = t.n_groups
     if want_index:
-        idx = t.index_of(raw)
-        temp = t.lut_c.ravel().take(idx)
-        if t.group_index is None:
-            gidx = idx
-        else:
-            gidx = np.add(raw, t.group_index * np.int32(t.n_values) - np.int32(t.base), dtype=np.int32)
-        counts = np.bincount(gidx.ravel(), minlength=nl * t.n_values).reshape(nl, -1)
-        inv = _counts_by_reason(t.group_rows(t.reason_lut), counts)
-        return KernelResult(temp, inv, lookup_index=idx, value_counts=(0, counts))
+        # the temperatures and counts as without it, plus the flat (label, raw) index of
+        # every pixel for the uncertainty stage's tables
+        res = _correct_lookup(raw, t, False, count, window)
+        res.lookup_index = t.index_of(raw)
+        return res
     lo, hi = int(raw.min()), int(raw.max())
     _, _, a, span = window.fit(t, lo, hi)
     out = window.pool.empty(raw.shape, np.float32)       # every element is written below
