@@ -86,12 +86,11 @@ def _update_one_finite(best, best_frame, chunk, value, first_frame, sign, fresh=
         sub = np.take(flat, where, axis=1)
         k = (sub == v[where]).argmax(axis=0)
     else:
-        # many pixels (first chunks): walk the frames backwards so the earliest wins
-        kk = np.zeros(v.shape, np.int16 if f < 32768 else np.int64)
-        eq = np.empty(v.shape, bool)
-        for j in range(f - 1, -1, -1):
-            np.equal(flat[j], v, out=eq)
-            np.copyto(kk, j, where=eq)
+        # many pixels (first chunks): weigh the frames that reach the extreme by f - j,
+        # so the largest weight is that of the earliest one (every pixel has one)
+        typ = np.int16 if f < 32768 else np.int64
+        weight = (f - np.arange(f, dtype=typ))[:, None]
+        kk = f - (np.equal(flat, v) * weight).max(axis=0)
         k = kk if every else kk[where]
     if every:                           # every pixel (a stack's first chunk): no gather
         best.reshape(-1)[:] = v
