@@ -134,11 +134,12 @@ class UncertaintyStage(Stage):
         self.table_flat = self.table.ravel()
         self.contrib_flat = {k: v.ravel() for k, v in self.contrib.items()}
 
-    def _ensure(self, lo, hi):
-        """Fill the table columns of raw values [lo - 1024, hi + 1024] not yet computed."""
+    def _ensure(self, lo, hi, margin=1024):
+        """Fill the table columns of raw values [lo - margin, hi + margin] not yet computed
+        (the margin spares later chunks a fill of their own; the last chunk needs none)."""
         rad = self.rad
         nv = rad.lut_c.shape[1]
-        a, b = max(int(lo) - rad.base - 1024, 0), min(int(hi) - rad.base + 1025, nv)
+        a, b = max(int(lo) - rad.base - margin, 0), min(int(hi) - rad.base + margin + 1, nv)
         cols = a + np.flatnonzero(~self.done[a:b])
         if not cols.size:
             return
@@ -161,7 +162,8 @@ class UncertaintyStage(Stage):
         if self.lookup:
             idx = chunk.lookup_index
             raw = chunk.raw if chunk.raw is not None else idx % self.rad.n_values + self.rad.base
-            self._ensure(raw.min(), raw.max())
+            last = chunk.first + n >= ctx.shape[0]
+            self._ensure(raw.min(), raw.max(), 0 if last else 1024)
             big_u = self.table_flat.take(idx)
             big_u[~valid] = np.nan
             flat_idx = idx.reshape(n, -1)
