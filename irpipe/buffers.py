@@ -21,7 +21,9 @@ _TUNED = []
 
 def tune_allocator():
     """Settings of the C allocator (glibc ``mallopt``) for streaming large arrays; called
-    once per process before a run (idempotent). Linux/glibc only; elsewhere nothing.
+    once per process by the command line before a run, and by the run's own job
+    processes (idempotent). Not by ``irpipe.pipeline.run`` itself: a caller's process
+    keeps its own settings. Linux/glibc only; elsewhere nothing.
 
     * One malloc arena (``M_ARENA_MAX`` 1). glibc gives threads their own arenas, and the
       blocks freed in them were not handed back between the stacks of a survey: one

@@ -136,7 +136,10 @@ def _worker_state(config_path):
     if _WORKER.get("key") != key:
         cfg = load_config(config_path)
         _WORKER.update(key=key, cfg=cfg, cameras={}, materials=load_materials(cfg))
-        _freeze_heap()
+        if _WORKER.get("forked_job"):       # a job process of this run's own pool
+            from .buffers import tune_allocator
+            tune_allocator()                # (the command line has set it before the fork)
+            _freeze_heap()
     return _WORKER["cfg"], _WORKER["cameras"], _WORKER["materials"]
 
 
@@ -144,17 +147,21 @@ def _freeze_heap():
     """Exempt every object alive now (modules, config, material library) from the
     collector's scans (``gc.freeze``): the full collection after each stack of a survey
     (``_release_heap``) then looks at that stack's objects only (measured: 19 ms per stack
-    for a full scan of the imported modules' objects, once per stack)."""
+    for a full scan of the imported modules' objects, once per stack). Garbage is
+    collected first, so that no unreachable cycle is frozen. Only in the run's own forked
+    job processes, which end with the run: a frozen object that later becomes cyclic
+    garbage is never freed, which a caller's process or a dask worker must not inherit."""
     import gc
+    gc.collect()
     gc.freeze()
 
 
 def _release_heap():
     """Free a finished stack's objects now (they form reference cycles, which Python's
     collector would reach only later) and give the heap memory back to the system (glibc
-    ``malloc_trim``). The command line raises glibc's trim threshold so that chunk
-    buffers are reused within a stack (``buffers.tune_allocator``); between stacks of a
-    survey that would let the resident size creep up with every stack. Linux/glibc only."""
+    ``malloc_trim``). ``buffers.tune_allocator`` raises glibc's trim threshold so that
+    chunk buffers are reused within a stack; between stacks of a survey that would let the
+    resident size creep up with every stack. Linux/glibc only."""
     import gc
 
     gc.collect()        # the stack's context and stages refer to each other: free them now
@@ -228,8 +235,6 @@ def run(config_path, out_dir=None, *, resume=False, keep_going=False, quiet=True
     moved into place in config order, so that without ``keep_going`` a failed stack leaves
     no output of the stacks after it."""
     started = time.time()
-    from .buffers import tune_allocator
-    tune_allocator()
     cfg = load_config(config_path)
     out = Path(out_dir) if out_dir else (cfg.base_dir / cfg.data["output"]["dir"])
     options = {"keep_going": keep_going, "quiet": quiet, "workers": workers, "scheduler": scheduler,
@@ -260,7 +265,6 @@ def run(config_path, out_dir=None, *, resume=False, keep_going=False, quiet=True
                 continue
         todo.append(("run", i, None))
     checked = None                      # keep nothing of the check: each stack is prepared anew
-    _freeze_heap()
 
     def settle(o: _Outcome):
         """Record a finished stack in config order; raise when the run must stop."""
@@ -360,6 +364,9 @@ def _run_jobs(cfg, todo, out, options, jobs, draw, settle, settle_other, quiet, 
         from . import modeltables
         modeltables.clear()
         _release_heap()
+        # the job processes, forked from here, know they are disposable: they may freeze
+        # their heap (``_freeze_heap``); a dask worker process may not
+        _WORKER["forked_job"] = True
         pool = ProcessPoolExecutor(max_workers=jobs, mp_context=ctx)
     try:
         futures = {}
@@ -394,6 +401,7 @@ def _run_jobs(cfg, todo, out, options, jobs, draw, settle, settle_other, quiet, 
             pool.close()
         else:
             pool.shutdown(wait=True, cancel_futures=True)
+            _WORKER.pop("forked_job", None)
         if bar is not None:
             bar.close()
         shutil.rmtree(stage_root, ignore_errors=True)
