@@ -30,7 +30,6 @@ from __future__ import annotations
 import argparse
 import json
 import os
-import platform
 import shutil
 import subprocess
 import sys
@@ -40,7 +39,7 @@ from pathlib import Path
 
 import numpy as np
 
-from benchcommon import before_timing
+from benchcommon import before_timing, machine_info
 
 ROOT = Path(__file__).resolve().parent.parent
 ROWS, COLS = 512, 640
@@ -271,8 +270,7 @@ def main(argv=None):
                              "run_whole": {str(n): round(n * mpx / res[n]["run"]["seconds"], 1) for n in (s, l)}},
             "peak_rss_mb": {"run": {str(n): res[n]["run"]["peak_rss_mb"] for n in (s, l)},
                             "floor": {str(n): res[n]["floor"]["peak_rss_mb"] for n in (s, l)}},
-            "machine": {"cpus": os.cpu_count(), "python": platform.python_version(),
-                        "numpy": np.__version__, "platform": platform.platform(terse=True)},
+            "machine": machine_info(),
             "created_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
         }
     finally:

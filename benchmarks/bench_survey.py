@@ -46,7 +46,6 @@ from __future__ import annotations
 import argparse
 import json
 import os
-import platform
 import shutil
 import subprocess
 import sys
@@ -57,7 +56,7 @@ from pathlib import Path
 
 import numpy as np
 
-from benchcommon import before_timing
+from benchcommon import before_timing, machine_info
 
 ROOT = Path(__file__).resolve().parent.parent
 ROWS, COLS, FRAMES = 512, 640, 4
@@ -361,8 +360,7 @@ def main(argv=None):
             "noisy_stacks": a.noisy_stacks, "noisy_noise_counts": NOISY_COUNTS,
             "chromium_ms": browser,
             "load_average_1min": {"start": round(load_start, 2), "end": round(os.getloadavg()[0], 2)},
-            "machine": {"cpus": os.cpu_count(), "python": platform.python_version(),
-                        "numpy": np.__version__, "platform": platform.platform(terse=True)},
+            "machine": machine_info(),
             "created_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
         }
     finally:

@@ -12,9 +12,12 @@ written out first (``os.sync``), so that no run pays for another one's write-bac
 from __future__ import annotations
 
 import os
+import platform
 import shutil
 import time
 from pathlib import Path
+
+import numpy as np
 
 #: pause between deleting a command's earlier outputs and timing it [s]
 PAUSE_S = 3.0
@@ -32,3 +35,9 @@ def before_timing(remove=()):
         os.sync()
     if remove:
         time.sleep(PAUSE_S)
+
+
+def machine_info():
+    """The machine and versions stored with every set of figures."""
+    return {"cpus": os.cpu_count(), "python": platform.python_version(),
+            "numpy": np.__version__, "platform": platform.platform(terse=True)}
