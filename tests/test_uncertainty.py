@@ -248,6 +248,40 @@ def test_plans_agree(e2e):
     assert np.nanmax(np.abs(a - b) / a) < 1e-3
 
 
+def test_counted_region_figures_equal_the_pixels(e2e, monkeypatch, tmp_path):
+    """Lookup plan: the region figures come from the (tally group, raw value) counts. They
+    must be the figures of the written per-pixel U (mean and maximum over the region's valid
+    pixels), and equal, budget included, to accumulating the pixels chunk by chunk (the
+    stage's path when the tally does not cover the regions). Arithmetic identity, no
+    outside source."""
+    import irpipe.stages.uncertainty as stage
+
+    out, _, regions = e2e
+    st, folder = out["lookup"]
+    u_img = tifffile.imread(folder / "wall.uncertainty.tif").astype(np.float64)
+    by = {r["name"]: r for r in st["regions"]}
+    for name, (rect, _, _) in regions.items():
+        r0, c0, r1, c1 = rect
+        v = u_img[:, r0:r1, c0:c1]
+        v = v[np.isfinite(v)]
+        assert by[name]["expanded_uncertainty_k"] == pytest.approx(round(v.mean(), 4), abs=1.5e-4), name
+        assert by[name]["expanded_uncertainty_max_k"] == pytest.approx(round(v.max(), 4), abs=1e-9), name
+    cfg = (folder.parent / "lookup.yaml").read_text().replace("out-lookup", str(tmp_path / "pixels"))
+    (tmp_path / "lookup.yaml").write_text(cfg)
+    for f in ("wall.tif", "labels.tif"):
+        (tmp_path / f).write_bytes((folder.parent / f).read_bytes())
+    monkeypatch.setattr(stage, "tally_covers_regions", lambda ctx: False)
+    pixels = {r["name"]: r for r in run(tmp_path / "lookup.yaml", quiet=True).report["stacks"][0]["regions"]}
+    for name in regions:
+        a, b = by[name], pixels[name]
+        for key in ("expanded_uncertainty_k", "expanded_uncertainty_max_k"):
+            assert a[key] == pytest.approx(b[key], abs=1.5e-4), (name, key)
+        assert a["uncertainty_budget_k"].keys() == b["uncertainty_budget_k"].keys()
+        for key, val in a["uncertainty_budget_k"].items():
+            assert val == pytest.approx(b["uncertainty_budget_k"][key], abs=1.5e-4), (name, key)
+        assert a["uncertainty_flag"] == b["uncertainty_flag"]
+
+
 def test_stage_only_with_nonzero_section(tmp_path, linear_camera):
     from irpipe.config import load_config
     from irpipe.pipeline import plan

@@ -21,9 +21,12 @@ Submodules of ``irpipe.stages`` import this module, never the package's ``__init
 """
 from __future__ import annotations
 
+import numpy as np
+
 from ..context import PREPARED, Chunk, Picture, StackContext
 
-__all__ = ["Chunk", "Picture", "StackContext", "PREPARED", "Stage", "check_order", "processes_chunks"]
+__all__ = ["Chunk", "Picture", "StackContext", "PREPARED", "Stage", "check_order", "processes_chunks",
+           "tally_covers_regions", "region_groups"]
 
 
 class Stage:
@@ -50,6 +53,21 @@ class Stage:
 
     def abort(self, ctx):
         pass
+
+
+def tally_covers_regions(ctx) -> bool:
+    """Whether the stack's (tally group, raw value) counts give every region's values
+    exactly: lookup plan, counts kept, and tally groups split by the regions
+    (``irpipe.kernel.tally_groups``). Then a region's figures of any function of the
+    (label, raw value) table are sums over the counts, with no per-pixel work."""
+    t = ctx.tables
+    return ctx.lookup_counts is not None and t is not None and t.lookup and t.groups_split_regions
+
+
+def region_groups(ctx):
+    """{region name: tally groups of the region's pixels} (with ``tally_covers_regions``)."""
+    gi = ctx.tables.group_index
+    return {name: np.unique(gi[mask]) for name, mask in ctx.masks.items()}
 
 
 def processes_chunks(stage) -> bool:

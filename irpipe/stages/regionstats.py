@@ -13,13 +13,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..regions import RegionAccumulator
-from .base import Stage
-
-
-def _counted(ctx):
-    """Whether the stack's tally gives every region's histogram."""
-    t = ctx.tables
-    return ctx.lookup_counts is not None and t is not None and t.lookup and t.groups_split_regions
+from .base import Stage, region_groups, tally_covers_regions
 
 
 class RegionStatsStage(Stage):
@@ -31,17 +25,18 @@ class RegionStatsStage(Stage):
         self.acc = [RegionAccumulator(n, m) for n, m in ctx.masks.items()]
 
     def process(self, chunk, ctx):
-        binned = not _counted(ctx)
+        binned = not tally_covers_regions(ctx)
         for a in self.acc:
             a.update(chunk.temperature_c, chunk.first, binned=binned)
 
     def finish(self, ctx):
-        if _counted(ctx):
+        if tally_covers_regions(ctx):
             t = ctx.tables
             values = t.group_rows(t.lut_c)                 # (groups, raw values) [C], NaN invalid
             regions = []
+            in_region = region_groups(ctx)
             for a in self.acc:
-                groups = np.unique(t.group_index[a.mask])
+                groups = in_region[a.name]
                 counts = ctx.lookup_counts[groups]
                 use = (counts > 0) & np.isfinite(values[groups])
                 regions.append(a.result(counted=(values[groups][use], counts[use])))

@@ -12,7 +12,9 @@ Execution follows the radiometric stage's plan:
 
 * lookup plan: U is a function of (raw value, emissivity label) only, so one table of U
   per label over every raw value is built at start and each pixel is a gather with the
-  temperature's own index;
+  temperature's own index; when the stack's tally covers the regions
+  (``stages.base.tally_covers_regions``), the region figures are sums of the tables over
+  the (tally group, raw value) counts, with no per-pixel work;
 * per-pixel plan: the propagation runs vectorised per frame, with the per-frame reflected
   temperature of the reflector method where there is one.
 
@@ -42,7 +44,7 @@ from ..emissivity import METAL_EMISSIVITY
 from ..io import StackWriter
 from ..kernel import linearise
 from ..uncertainty import COVERAGE_FACTOR, InputUncertainties, ModelCache, gum_uncertainty, path_variant
-from .base import Stage
+from .base import Stage, region_groups, tally_covers_regions
 
 CONFIG_KEYS = {"emissivity": "emissivity", "reflected_temperature": "reflected_temperature_k",
                "air_temperature": "air_temperature_k", "relative_humidity": "relative_humidity_pct",
@@ -68,7 +70,7 @@ def nominal_path(ctx):
 class UncertaintyStage(Stage):
     name = "uncertainty"
     requires = ("chunk.temperature_c", "chunk.signal", "chunk.lookup_index", "chunk.reflected_temperature_k",
-                "ctx.tables", "ctx.path_model")
+                "ctx.tables", "ctx.path_model", "ctx.lookup_counts")
     provides = ("ctx.region_uncertainty",)
 
     @classmethod
@@ -98,12 +100,15 @@ class UncertaintyStage(Stage):
         else:
             self.eps = np.asarray(self.rad.emissivity, np.float64)
             self.u_eps = u_eps_map
-        # per-region accumulators (flat pixel indices)
-        self.regions = {n: np.flatnonzero(m) for n, m in ctx.masks.items()}
+        # per-region accumulators (flat pixel indices); none when the stack's tally gives
+        # every region's (label, raw value) counts: the figures are then sums over the
+        # counts of the tables (``_counted_regions``), with no per-pixel work
+        self.counted = self.lookup and tally_covers_regions(ctx)
+        self.regions = {} if self.counted else {n: np.flatnonzero(m) for n, m in ctx.masks.items()}
         self.acc = {n: {"sum": 0.0, "n": 0, "max": -np.inf, "sq": {k: 0.0 for k in self.inputs}}
-                    for n in self.regions}
-        eps_img = eps_field.as_array(self.shape2).ravel()
-        self.region_eps = {n: float(eps_img[i].mean()) for n, i in self.regions.items()}
+                    for n in ctx.masks}
+        eps_img = eps_field.as_array(self.shape2)
+        self.region_eps = {n: float(eps_img[m].mean()) for n, m in ctx.masks.items()}
         self.file = f"{ctx.name}.uncertainty.tif"
         meta = {"software": "irpipe", "version": __version__,
                 "quantity": "expanded uncertainty of the surface temperature", "units": "K",
@@ -201,7 +206,36 @@ class UncertaintyStage(Stage):
                 c = c.astype(np.float64)
                 a["sq"][k] += float((c[ok] ** 2).sum())
 
+    def _counted_regions(self, ctx):
+        """Each region's sum, count and maximum of U and sums of squared contributions from
+        the stack's (tally group, raw value) counts: the same figures as accumulating the
+        region's pixels (only the float64 summation order differs)."""
+        t = ctx.tables
+        cols = np.flatnonzero(ctx.lookup_counts.any(axis=0))
+        if not cols.size:
+            return
+        a0, a1 = int(cols[0]), int(cols[-1]) + 1
+        u_rows = t.group_rows(self.table[:, a0:a1])
+        ok_rows = np.isfinite(u_rows) & np.isfinite(t.group_rows(t.lut_c[:, a0:a1]))
+        c_rows = {k: t.group_rows(v[:, a0:a1]) for k, v in self.contrib.items()}
+        for name, groups in region_groups(ctx).items():
+            counts = ctx.lookup_counts[groups, a0:a1]
+            use = ok_rows[groups] & (counts > 0)
+            if not use.any():
+                continue
+            w = counts[use].astype(np.float64)
+            u = u_rows[groups][use].astype(np.float64)
+            a = self.acc[name]
+            a["sum"] = float(w @ u)
+            a["n"] = int(counts[use].sum())
+            a["max"] = float(u.max())
+            for k in self.inputs:
+                c = c_rows[k][groups][use].astype(np.float64)
+                a["sq"][k] = float(w @ (c * c))
+
     def finish(self, ctx):
+        if self.counted:
+            self._counted_regions(ctx)
         self.writer.commit()
         ctx.outputs["uncertainty"] = self.file
         limit = self.sec.get("limit_k")
