@@ -359,29 +359,52 @@ def local_linear_smooth(image, mask, radius=2):
     return out
 
 
+def _window_sum(a, r):
+    """Sum of ``a`` over the (2r+1) x (2r+1) window around every pixel, zero outside
+    (running sums along each axis; exact for integer arrays)."""
+    n, m = a.shape
+    k = 2 * r + 1
+    c = np.zeros((n + k, m), a.dtype)
+    np.cumsum(a, axis=0, out=c[r + 1:n + r + 1])
+    c[n + r + 1:] = c[n + r]
+    rows = c[k:] - c[:-k]
+    d = np.zeros((n, m + k), a.dtype)
+    np.cumsum(rows, axis=1, out=d[:, r + 1:m + r + 1])
+    d[:, m + r + 1:] = d[:, m + r:m + r + 1]
+    return d[:, k:] - d[:, :-k]
+
+
 def _local_linear_smooth(image, m, radius):
-    from scipy import ndimage
+    """The plane-fit intercepts of ``local_linear_smooth`` on a cropped image.
 
-    w = m.astype(np.float64)
+    Where the whole window is in the mask, the offsets' odd moments vanish
+    (sum dr = sum dc = sum dr dc = 0 over a symmetric square), so the normal equations
+    decouple and the intercept is the window mean: one running sum. Only pixels whose
+    window is cut by the mask's edge or a hole solve the 3 x 3 system, on their own
+    windows' (2r+1)^2 values."""
+    k = 2 * radius + 1
     z = np.where(m, image, 0.0).astype(np.float64)
-    k = np.arange(-radius, radius + 1, dtype=np.float64)
-    dr = np.repeat(k[:, None], k.size, 1)
-    dc = dr.T
-    ones = np.ones_like(dr)
-
-    def conv(a, kern):
-        # correlation: sum over q of a(q) * kern(q - p)
-        return ndimage.correlate(a, kern, mode="constant")
-
-    s0, sr, sc = conv(w, ones), conv(w, dr), conv(w, dc)
-    srr, scc, src = conv(w, dr * dr), conv(w, dc * dc), conv(w, dr * dc)
-    st, srt, sct = conv(z, ones), conv(z, dr), conv(z, dc)
+    count = _window_sum(m.astype(np.int32), radius)
     out = np.full(image.shape, np.nan)
-    sel = m & (s0 >= 3)
-    few = m & (s0 < 3)
+    full = m & (count == k * k)
+    out[full] = _window_sum(z, radius)[full] / (k * k)
+    few = m & (count < 3)
+    out[few] = image[few]
+    part = m & (count < k * k) & (count >= 3)
+    if not part.any():
+        return out
+    d = np.arange(-radius, radius + 1)
+    dr, dc = np.repeat(d, k), np.tile(d, k)
+    width = m.shape[1] + 2 * radius
+    pr, pc = np.nonzero(part)
+    at = ((pr + radius) * width + (pc + radius))[:, None] + (dr * width + dc)[None, :]
+    w = np.pad(m, radius).ravel()[at].astype(np.float64)          # (pixels, window)
+    zv = np.pad(z, radius).ravel()[at]
+    moments = np.stack([np.ones(k * k), dr, dc, dr * dr, dc * dc, dr * dc], 1).astype(np.float64)
+    s0, sr, sc, srr, scc, src = (w @ moments).T
+    st, srt, sct = (zv @ moments[:, :3]).T
     # the intercept of the 3x3 symmetric normal equations by Cramer's rule: first row of
-    # the adjugate (cofactors c0, c1, c2) over the determinant, for all pixels at once
-    s0, sr, sc, srr, scc, src, st, srt, sct = (x[sel] for x in (s0, sr, sc, srr, scc, src, st, srt, sct))
+    # the adjugate (cofactors c0, c1, c2) over the determinant
     c0 = srr * scc - src * src
     c1 = sc * src - sr * scc
     c2 = sr * src - srr * sc
@@ -391,9 +414,7 @@ def _local_linear_smooth(image, m, radius):
         vals = (st * c0 + srt * c1 + sct * c2) / det
     # where the plane is undetermined (collinear neighbours), use the window mean
     mean = st / np.maximum(s0, 1)
-    vals = np.where(good, vals, mean)
-    out[sel] = vals
-    out[few] = image[few]
+    out[pr, pc] = np.where(good, vals, mean)
     return out
 
 

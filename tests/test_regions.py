@@ -57,6 +57,35 @@ def test_local_linear_smooth_keeps_gradients_at_edges():
     assert np.std((local_linear_smooth(noisy, mask) - ramp)[inner]) < 0.05   # ~0.1/sqrt(25)*(1+)
 
 
+def test_local_linear_smooth_is_the_windowed_least_squares_plane():
+    """Definition (Savitzky & Golay 1964, order 1, on a masked domain): per pixel the
+    intercept of the least-squares plane over the mask's pixels in its 5 x 5 window,
+    solved here pixel by pixel with numpy.linalg.lstsq. The mask has holes, a ragged
+    edge, isolated pixels and a collinear line, so every branch (full window, cut window,
+    collinear window, fewer than three pixels) is compared."""
+    rng = np.random.default_rng(5)
+    img = rng.normal(8.0, 1.0, (24, 31)).astype(np.float32)
+    mask = np.zeros(img.shape, bool)
+    mask[2:20, 3:25] = True
+    mask &= rng.random(img.shape) > 0.08
+    mask[21, 2:12] = True                        # a line: collinear windows
+    mask[23, 29] = True                          # an isolated pixel
+    out = local_linear_smooth(img, mask, radius=2)
+    want = np.full(img.shape, np.nan)
+    for r, c in zip(*np.nonzero(mask)):
+        rr, cc = np.nonzero(mask[max(r - 2, 0):r + 3, max(c - 2, 0):c + 3])
+        dr, dc = rr + max(r - 2, 0) - r, cc + max(c - 2, 0) - c
+        z = img[dr + r, dc + c].astype(np.float64)
+        if z.size < 3:
+            want[r, c] = img[r, c]
+            continue
+        a = np.stack([np.ones(z.size), dr, dc], 1)
+        sol, _, rank, _ = np.linalg.lstsq(a, z, rcond=None)
+        want[r, c] = sol[0] if rank == 3 else z.mean()
+    assert np.array_equal(np.isnan(out), ~mask)
+    np.testing.assert_allclose(out[mask], want[mask], rtol=0, atol=1e-9)
+
+
 def test_ellipse_spellings(tmp_path, linear_camera):
     # config edge: {center}, {centre} and [row, col, rr, rc] give the same region (project convention)
     import tifffile
