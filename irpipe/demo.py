@@ -156,7 +156,7 @@ def _model(distance, air_c, rh_pct, camera=None):
 
     cam = camera or CameraModel(_bands())
     tau = spectral_transmittance(cam.response.wavelength, distance, air_c + K0, rh_pct / 100) if distance else 1.0
-    return MeasurementModel(cam, tau)
+    return MeasurementModel(cam, tau, coarse_path=False)     # scenes drawn on every table node
 
 
 def _smooth_noise(rng, shape, scale, sigma=6.0):

@@ -14,18 +14,26 @@ path transmittance tau_k). Planck's law at (lambda_k, T_i) depends on the respon
 wavelengths and the temperature range only, not on the path, and evaluating it is
 nearly all of a model's cost. So this module keeps, per process:
 
-* ``planck_table(response, t_range)``: L_lambda(lambda_k, T_i) once per wavelength grid
-  and temperature range (``radiometry.PlanckTable``); a new path (distance, humidity,
-  air temperature) then costs one weighted sum over the spectral grid. Least recently
-  used tables are dropped beyond ``PLANCK_CACHE_BYTES`` (a 7.5-14 um band of 1301
-  nodes takes 85 MB in float32); a table larger than that alone is not kept.
+* the path-free band radiance L(T_i) on every node, once per response and range
+  (``_plain_nodes``; Planck's law evaluated in blocks as it goes, not kept);
+* per path, the band transmittance tau_eff(T) = L_tau / L integrated on every
+  ``COARSE_STEP``-th node and interpolated linearly in 1/T in between (tau_eff is smooth
+  in T: within 7e-9 relative for paths up to 30 m at 95 % RH over the 7.5-14 um band and
+  the default range, about 4e-7 K in temperature; ``tests/test_modeltables.py``), from
+  Planck's law on the coarse nodes, kept per response and range (``_coarse_planck``,
+  5 MB). A new path (distance, humidity, air temperature) then costs one weighted sum
+  over a sixteenth of the nodes;
+* ``planck_table(response, t_range)``: Planck's law on every node, for the exact
+  reference tables (``coarse=False``, used by the tests and the demo's scene generator):
+  least recently used tables are dropped beyond ``PLANCK_CACHE_BYTES`` (a 7.5-14 um band
+  of 1301 nodes takes 85 MB in float32); a table larger than that alone is not kept;
 * ``measurement_tables(camera, transmittance, t_range)``: the signal and path tables
   per (camera, transmittance, range), so stacks with equal conditions share them (the
-  ``MAX_PATH_TABLES`` most recently used, about 0.5 MB each with their splines: room for
-  the nominal and six perturbed paths of a few stacks, so that neighbouring stacks taken
-  under equal conditions share them while a survey of hundreds of stacks at their own
-  distances keeps the memory of a few). Signal tables, which do
-  not depend on the path, are shared between paths whenever their samples are equal.
+  ``MAX_PATH_TABLES`` most recently used, about 0.5 MB each with their inverse grids:
+  room for the nominal and six perturbed paths of a few stacks, so that neighbouring
+  stacks taken under equal conditions share them while a survey of hundreds of stacks
+  at their own distances keeps the memory of a few). Signal tables, which do not depend
+  on the path, are shared between paths whenever their samples are equal.
 
 Numbers do not change: a kept table holds the values the same float operations give on
 the same inputs (the same Planck blocks, the same matrix products, the same table
@@ -78,7 +86,7 @@ def _camera_key(camera):
     return (_digest(r.wavelength, r.weights), camera.kind, tuple(float(v) for v in camera.sh))
 
 
-def planck_table(response, t_range, n=4096):
+def planck_table(response, t_range, n=4096, step=1):
     """Planck's law at ``response``'s wavelengths on ``node_temperatures(*t_range, n)``.
 
     Parameters
@@ -88,6 +96,9 @@ def planck_table(response, t_range, n=4096):
         Temperature range of the tables [K].
     n : int
         Nodes of the inverse table (the grid has 4 n temperatures).
+    step : int
+        Keep every ``step``-th node of the grid and the last (``COARSE_STEP`` for the
+        coarse transmittance nodes); 1 for every node.
 
     Returns
     -------
@@ -97,10 +108,13 @@ def planck_table(response, t_range, n=4096):
         with the same result).
     """
     t0, t1 = float(t_range[0]), float(t_range[1])
-    size = 4 * int(n) * response.wavelength.size * 4        # float32 (radiometry._planck_blocks)
+    t_nodes = node_temperatures(t0, t1, n)
+    if step > 1:
+        t_nodes = t_nodes[np.unique(np.r_[np.arange(0, t_nodes.size, step), t_nodes.size - 1])]
+    size = t_nodes.size * response.wavelength.size * 4        # float32 (radiometry._planck_blocks)
     if not _state["enabled"] or size > PLANCK_CACHE_BYTES:
         return None
-    key = (_digest(response.wavelength), t0, t1, int(n))
+    key = (_digest(response.wavelength), t0, t1, int(n), int(step))
     with _lock:
         table = _planck.get(key)
         if table is not None:
@@ -108,7 +122,7 @@ def planck_table(response, t_range, n=4096):
             _state["planck_hits"] += 1
             return table
         _state["planck_misses"] += 1
-        table = response.planck_table(node_temperatures(t0, t1, n))
+        table = response.planck_table(t_nodes)
         _planck[key] = table
         while sum(t.nbytes for t in _planck.values()) > PLANCK_CACHE_BYTES:
             _planck.popitem(last=False)
@@ -157,26 +171,27 @@ def _plain_nodes(camera, t_range, t_nodes):
 
 
 def _plain_band(response, t_range, t_nodes):
-    """The band radiance L(T) without a path on the table nodes: one single-column sum,
-    the same for every path of the response (kept with the plain signal, ``_plain_nodes``)."""
-    pt = planck_table(response, t_range)
-    return response.band_radiance(t_nodes if pt is None else pt)
+    """The band radiance L(T) without a path on the table nodes, the same for every path of
+    the response (kept with the plain signal, ``_plain_nodes``). Planck's law is evaluated
+    in blocks as the sum goes and not kept: a kept table gives the same numbers
+    (``radiometry.SpectralResponse._planck_blocks``) at 85 MB per process."""
+    return _kept_plain(("plain-band", _digest(response.wavelength, response.weights), t_range),
+                       lambda: response.band_radiance(t_nodes))
 
 
 def _coarse_plain(response, t_range, ptc):
     """L(T) on the coarse nodes (kept per response and range, like the coarse table)."""
-    return _kept_plain(("coarse-plain", _digest(response.wavelength), t_range), lambda: response.band_radiance(ptc))
+    return _kept_plain(("coarse-plain", _digest(response.wavelength, response.weights), t_range),
+                       lambda: response.band_radiance(ptc))
 
 
 def _coarse_planck(response, t_range, t_nodes):
-    """Planck's law on every COARSE_STEP-th table node and the last (kept per response and range)."""
-    key = ("coarse", _digest(response.wavelength), t_range)
-    table = _planck.get(key) if _state["enabled"] else None
+    """Planck's law on every COARSE_STEP-th table node and the last (kept per response and
+    range with the other Planck tables; evaluated afresh when the caches are disabled)."""
+    table = planck_table(response, t_range, step=COARSE_STEP)
     if table is None:
         idx = np.unique(np.r_[np.arange(0, t_nodes.size, COARSE_STEP), t_nodes.size - 1])
         table = response.planck_table(t_nodes[idx])
-        if _state["enabled"]:
-            _planck[key] = table
     return table
 
 
@@ -193,11 +208,10 @@ def measurement_tables(camera, transmittance, t_range, path_signal, coarse=False
     path_signal : callable
         Exact G(T) of the model (kept as the path table's ``func``).
     coarse : bool
-        For the perturbed paths of the uncertainty propagation: the band transmittance
-        tau_eff(T) = L_tau / L is integrated on every ``COARSE_STEP``-th node only and
-        interpolated linearly in 1/T between them (tau_eff is smooth in T: the
-        interpolation error is below 1e-7 over the LWIR band's range), so a new path costs
-        a sixteenth of the weighted sums. The tables of stacks' own paths are never coarse.
+        The band transmittance tau_eff(T) = L_tau / L is integrated on every
+        ``COARSE_STEP``-th node only and interpolated linearly in 1/T between them (see
+        the module docstring for the accuracy), so a new path costs a sixteenth of the
+        weighted sums. False integrates on every node (the reference).
 
     Returns
     -------
@@ -236,13 +250,12 @@ def measurement_tables(camera, transmittance, t_range, path_signal, coarse=False
             g_nodes = s_nodes * tau_eff
         elif tau.ndim == 0:
             if band:
-                pt = planck_table(r, t_range)
-                s_nodes = r.band_radiance(t_nodes if pt is None else pt)
+                s_nodes = _plain_nodes(camera, t_range, t_nodes)
             else:
                 s_nodes = camera.signal(t_nodes)
             g_nodes = s_nodes * float(tau)
         else:
-            # L(T) is the same for every path (kept): a new path costs one weighted sum
+            # the exact reference: every node
             pt = planck_table(r, t_range)
             l_plain = _plain_nodes(camera, t_range, t_nodes) if band else _plain_band(r, t_range, t_nodes)
             l_tau = r.band_radiance(t_nodes if pt is None else pt, tau)

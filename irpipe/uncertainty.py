@@ -168,9 +168,7 @@ def path_variant(base, transmittance):
     """
     from .correction import MeasurementModel
 
-    # the path table's transmittance on coarse nodes: a perturbed path only enters
-    # through differences of two such models (irpipe.modeltables.measurement_tables)
-    return MeasurementModel(base.camera, transmittance, base.t_range, coarse_path=True)
+    return MeasurementModel(base.camera, transmittance, base.t_range)
 
 
 def _as_cache(model_factory):

@@ -87,20 +87,26 @@ def test_caches_are_bounded(monkeypatch):
         MeasurementModel(cam, spectral_transmittance(lam, d, 290.0, 0.5), T_RANGE)
     assert modeltables.cache_info()["path_tables"] == 3
     # a Planck table larger than the budget is not kept, and the model is unchanged
+    # (the exact reference, coarse_path=False, uses Planck's law on every node)
     table_bytes = modeltables.cache_info()["planck_bytes"]
+    assert 0 < table_bytes < 10 * 2**20                  # the coarse nodes only: a few MB
+    modeltables.clear()
+    MeasurementModel(cam, spectral_transmittance(lam, 6.0, 290.0, 0.5), T_RANGE, coarse_path=False)
+    table_bytes = max(t.nbytes for t in modeltables._planck.values())
     modeltables.clear()
     monkeypatch.setattr(modeltables, "PLANCK_CACHE_BYTES", table_bytes - 1)
     tau = spectral_transmittance(lam, 7.0, 290.0, 0.5)
-    small = MeasurementModel(cam, tau, T_RANGE)
-    assert modeltables.cache_info()["planck_tables"] == 0
+    small = MeasurementModel(cam, tau, T_RANGE, coarse_path=False)
+    assert all(t.nbytes < table_bytes for t in modeltables._planck.values())
     with modeltables.disabled():
-        _same_tables(small, MeasurementModel(cam, tau, T_RANGE))
+        _same_tables(small, MeasurementModel(cam, tau, T_RANGE, coarse_path=False))
     # two ranges within the budget of one: the least recently used goes
     monkeypatch.setattr(modeltables, "PLANCK_CACHE_BYTES", table_bytes)
-    MeasurementModel(cam, tau, T_RANGE)
-    MeasurementModel(cam, tau, (223.15, 773.15))
+    modeltables.clear()
+    MeasurementModel(cam, tau, T_RANGE, coarse_path=False)
+    MeasurementModel(cam, tau, (223.15, 773.15), coarse_path=False)
     info = modeltables.cache_info()
-    assert info["planck_tables"] == 1 and info["planck_bytes"] <= table_bytes
+    assert info["planck_bytes"] <= table_bytes
 
 
 def test_planck_table_of_another_response_is_refused():
@@ -115,17 +121,20 @@ def test_planck_table_of_another_response_is_refused():
 
 @pytest.mark.parametrize("kind", ["band", "tabulated", "sakuma-hattori"])
 def test_coarse_path_tables_follow_the_exact_ones(kind):
-    """Perturbed paths of the uncertainty propagation take the band transmittance on every
-    16th node, interpolated in 1/T: G(T) within 1e-7 relative of the exact table over the
-    whole range, and the temperature a signal inverts to within 0.1 mK (the limit a
-    sensitivity by central differences of 0.05 K steps tolerates; common practice, no source)."""
+    """Path tables take the band transmittance on every 16th node, interpolated in 1/T:
+    G(T) within 1e-7 relative of the exact table over the whole range even on a 60 m path
+    at 80 % RH (within 3e-8 up to 30 m), and the temperature a signal inverts to within
+    3 uK (60 m) and 1 uK (up to 30 m) at 0..130 C, far below the 1 mK to which corrected temperatures are
+    compared and the camera's NETD (tens of mK; common practice, no source)."""
     cam = _cameras()[kind]
-    tau = spectral_transmittance(cam.response.wavelength, 60.0, 303.15, 0.8, 101325.0)
-    exact = MeasurementModel(cam, tau, T_RANGE)
-    coarse = MeasurementModel(cam, tau, T_RANGE, coarse_path=True)
-    t = exact.path_table._t_nodes
-    g_exact, g_coarse = exact.path_table.forward_fast(t), coarse.path_table.forward_fast(t)
-    assert np.max(np.abs(g_coarse / g_exact - 1.0)) < 1e-7
-    assert np.array_equal(exact.signal_table._x, coarse.signal_table._x)
-    s = exact.path_signal(np.linspace(250.0, 400.0, 31))
-    assert np.max(np.abs(coarse.path_table.inverse(s) - exact.path_table.inverse(s))) < 1e-4
+    for d, t_air, rh, rel, dt in ((60.0, 303.15, 0.8, 1e-7, 3e-6), (30.0, 298.15, 0.95, 3e-8, 1e-6),
+                                  (3.0, 288.15, 0.5, 3e-8, 1e-6)):
+        tau = spectral_transmittance(cam.response.wavelength, d, t_air, rh, 101325.0)
+        exact = MeasurementModel(cam, tau, T_RANGE, coarse_path=False)
+        coarse = MeasurementModel(cam, tau, T_RANGE)
+        t = exact.path_table._t_nodes
+        g_exact, g_coarse = exact.path_table.forward_fast(t), coarse.path_table.forward_fast(t)
+        assert np.max(np.abs(g_coarse / g_exact - 1.0)) < rel, d
+        assert np.array_equal(exact.signal_table._x, coarse.signal_table._x)
+        s = exact.path_signal(np.linspace(273.15, 403.15, 31))
+        assert np.max(np.abs(coarse.path_table.inverse(s) - exact.path_table.inverse(s))) < dt, d

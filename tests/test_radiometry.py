@@ -88,6 +88,19 @@ def test_inverse_table_accuracy_against_root_finder():
     assert np.isnan(tab.inverse(np.array([-1.0, 0.0, tab.s_max * 2]))).all()
 
 
+def test_inverse_grid_matches_the_closed_form_inverse_of_planck():
+    """The table's inverse grid (1/T at uniform ln S, by local cubic Hermite interpolation of
+    the dense nodes) against the closed-form inverse of Planck's law at one wavelength,
+    T = c2 / (lambda ln(1 + c1 / (lambda^5 L))) (Planck 1901; constants CODATA via
+    scipy.constants), over -60..650 C: within 1e-9 K."""
+    lam = 10e-6
+    c1, c2 = 2 * sc.h * sc.c ** 2, sc.h * sc.c / sc.k
+    tab = MonotoneTable(lambda t: planck_radiance(lam, t), 213.15, 923.15)
+    y = tab.y0 + tab.dy * np.arange(tab.n)
+    exact = c2 / (lam * np.log1p(c1 / (lam ** 5 * np.exp(y))))
+    assert np.max(np.abs(1.0 / tab._x - exact)) < 1e-9
+
+
 def test_inverse_monotonic():
     # invariant: temperature is strictly increasing in the signal
     r = SpectralResponse.rectangular(8e-6, 14e-6)
