@@ -91,6 +91,7 @@ class MeasurementModel:
         # equal conditions share their tables (irpipe.modeltables)
         self.signal_table, self.path_table = measurement_tables(camera, self.tau, self.t_range, self.path_signal,
                                                                 coarse=coarse_path)
+        self._terms = {}      # exact background terms of scalar temperatures (``background``)
 
     def effective_transmittance(self, temperature):
         """tau_eff(T): band transmittance weighted by a blackbody at T [fraction]."""
@@ -122,8 +123,18 @@ class MeasurementModel:
             g_refl = self.path_table.forward_fast(reflected_temperature)
             path = self.signal_table.forward_fast(air_temperature) - self.path_table.forward_fast(air_temperature)
             return g_refl, path
+        scalar = np.ndim(reflected_temperature) == 0 and np.ndim(air_temperature) == 0
+        if scalar:
+            # the uncertainty propagation solves many chunks with the same few (T_refl,
+            # T_air): each pair's band integrals are evaluated once per model
+            key = (float(reflected_temperature), float(air_temperature))
+            hit = self._terms.get(key)
+            if hit is not None:
+                return hit
         g_refl = self.path_signal(reflected_temperature)
         path = self.camera.signal(air_temperature) - self.path_signal(air_temperature)
+        if scalar and len(self._terms) < 256:
+            self._terms[key] = (g_refl, path)
         return g_refl, path
 
     def object_temperature(self, signal, emissivity, reflected_temperature, air_temperature,

@@ -81,9 +81,31 @@ def _digest(*arrays):
     return h.digest()
 
 
+_response_keys: OrderedDict = OrderedDict()
+
+
+def _response_key(response, weights=True):
+    """Content key of a response's wavelengths (and weights), remembered per response
+    object (the arrays of a ``SpectralResponse`` are not changed after it is made)."""
+    k = (id(response), weights)
+    with _lock:
+        hit = _response_keys.get(k)
+        if hit is not None and hit[0] is response:
+            return hit[1]
+        key = _digest(response.wavelength, response.weights) if weights else _digest(response.wavelength)
+        _response_keys[k] = (response, key)           # the object is kept, so its id stays its own
+        while len(_response_keys) > 32:
+            _response_keys.popitem(last=False)
+        return key
+
+
+def _coarse_index(size):
+    """Every ``COARSE_STEP``-th of ``size`` table nodes and the last."""
+    return np.unique(np.r_[np.arange(0, size, COARSE_STEP), size - 1])
+
+
 def _camera_key(camera):
-    r = camera.response
-    return (_digest(r.wavelength, r.weights), camera.kind, tuple(float(v) for v in camera.sh))
+    return (_response_key(camera.response), camera.kind, tuple(float(v) for v in camera.sh))
 
 
 def planck_table(response, t_range, n=4096, step=1):
@@ -108,13 +130,11 @@ def planck_table(response, t_range, n=4096, step=1):
         with the same result).
     """
     t0, t1 = float(t_range[0]), float(t_range[1])
-    t_nodes = node_temperatures(t0, t1, n)
-    if step > 1:
-        t_nodes = t_nodes[np.unique(np.r_[np.arange(0, t_nodes.size, step), t_nodes.size - 1])]
-    size = t_nodes.size * response.wavelength.size * 4        # float32 (radiometry._planck_blocks)
+    nodes = -(-4 * int(n) // step) + (1 if (4 * int(n) - 1) % step else 0)
+    size = nodes * response.wavelength.size * 4        # float32 (radiometry._planck_blocks)
     if not _state["enabled"] or size > PLANCK_CACHE_BYTES:
         return None
-    key = (_digest(response.wavelength), t0, t1, int(n), int(step))
+    key = (_response_key(response, weights=False), t0, t1, int(n), int(step))
     with _lock:
         table = _planck.get(key)
         if table is not None:
@@ -122,6 +142,9 @@ def planck_table(response, t_range, n=4096, step=1):
             _state["planck_hits"] += 1
             return table
         _state["planck_misses"] += 1
+        t_nodes = node_temperatures(t0, t1, n)
+        if step > 1:
+            t_nodes = t_nodes[_coarse_index(t_nodes.size)]
         table = response.planck_table(t_nodes)
         _planck[key] = table
         while sum(t.nbytes for t in _planck.values()) > PLANCK_CACHE_BYTES:
@@ -175,13 +198,13 @@ def _plain_band(response, t_range, t_nodes):
     the response (kept with the plain signal, ``_plain_nodes``). Planck's law is evaluated
     in blocks as the sum goes and not kept: a kept table gives the same numbers
     (``radiometry.SpectralResponse._planck_blocks``) at 85 MB per process."""
-    return _kept_plain(("plain-band", _digest(response.wavelength, response.weights), t_range),
+    return _kept_plain(("plain-band", _response_key(response), t_range),
                        lambda: response.band_radiance(t_nodes))
 
 
 def _coarse_plain(response, t_range, ptc):
     """L(T) on the coarse nodes (kept per response and range, like the coarse table)."""
-    return _kept_plain(("coarse-plain", _digest(response.wavelength, response.weights), t_range),
+    return _kept_plain(("coarse-plain", _response_key(response), t_range),
                        lambda: response.band_radiance(ptc))
 
 
@@ -190,8 +213,7 @@ def _coarse_planck(response, t_range, t_nodes):
     range with the other Planck tables; evaluated afresh when the caches are disabled)."""
     table = planck_table(response, t_range, step=COARSE_STEP)
     if table is None:
-        idx = np.unique(np.r_[np.arange(0, t_nodes.size, COARSE_STEP), t_nodes.size - 1])
-        table = response.planck_table(t_nodes[idx])
+        table = response.planck_table(t_nodes[_coarse_index(t_nodes.size)])
     return table
 
 
@@ -285,6 +307,7 @@ def clear():
         _paths.clear()
         _signals.clear()
         _plain.clear()
+        _response_keys.clear()
         _state.update(planck_hits=0, planck_misses=0, path_hits=0, path_misses=0)
 
 

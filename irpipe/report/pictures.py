@@ -118,8 +118,9 @@ def thumbnail(image, rng, levels=MAX_LEVELS, width=THUMB_WIDTH):
     pad[:img.shape[0], :img.shape[1]] = img
     b = pad.reshape(r // step, step, c // step, step)
     ok = np.isfinite(b)
-    n = ok.sum((1, 3))
-    s = np.where(ok, b, 0).sum((1, 3), dtype=np.float64)
+    n = ok.sum(3).sum(1)
+    # inner axis first (contiguous); block sums of float32 values are exact in float64
+    s = np.where(ok, b, np.float32(0)).sum(3, dtype=np.float64).sum(1)
     with np.errstate(invalid="ignore", divide="ignore"):
         mean = np.where(n > 0, s / np.maximum(n, 1), np.nan)
     idx = ct.to_indices(mean, *rng, levels) if rng else np.full(mean.shape, ct.INVALID, np.uint8)

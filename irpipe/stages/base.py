@@ -66,8 +66,9 @@ def tally_covers_regions(ctx) -> bool:
 
 def region_groups(ctx):
     """{region name: tally groups of the region's pixels} (with ``tally_covers_regions``)."""
-    gi = ctx.tables.group_index
-    return {name: np.unique(gi[mask]) for name, mask in ctx.masks.items()}
+    t = ctx.tables
+    return {name: np.flatnonzero(np.bincount(t.group_index[mask], minlength=t.n_groups))
+            for name, mask in ctx.masks.items()}
 
 
 def processes_chunks(stage) -> bool:

@@ -49,11 +49,7 @@ class EnvelopeStage(Stage):
             ok = m & np.isfinite(mean)
             if not ok.any():
                 continue
-            # crop to the region's bounding box (plus the window) to keep the filter cheap
-            rr, cc = np.nonzero(ok)
-            r0, r1 = max(rr.min() - 2, 0), rr.max() + 3
-            c0, c1 = max(cc.min() - 2, 0), cc.max() + 3
-            smooth = local_linear_smooth(mean[r0:r1, c0:c1], ok[r0:r1, c0:c1], radius=2)
+            smooth = local_linear_smooth(mean, ok, radius=2)     # works on the region's bounding box
             tmin = float(np.nanmin(smooth))
             crit = cfg.get("critical_temperature_factor", crit_default)
             a = findings.envelope_assessment(tmin, ti, te, rh, critical_factor=crit)
