@@ -79,11 +79,12 @@ class PixelTables:
         return "lookup" if self.lookup else "per-pixel"
 
     def index_of(self, raw):
-        """Flat table index (label * n_values + raw - base) of every pixel, int32."""
+        """Flat table index (label * n_values + raw - base) of every pixel, as numpy's index
+        type (intp), which ``take`` uses without a converted copy."""
         if self.label_index is None:
-            return raw.astype(np.int32) - np.int32(self.base) if self.base else raw.astype(np.int32)
-        offsets = self.label_index.astype(np.int32) * np.int32(self.n_values) - np.int32(self.base)
-        return np.add(raw, offsets, dtype=np.int32)
+            return np.subtract(raw, np.intp(self.base), dtype=np.intp)
+        offsets = self.label_index.astype(np.intp) * np.intp(self.n_values) - np.intp(self.base)
+        return np.add(raw, offsets, dtype=np.intp)
 
 
 def linearise(raw, tables: PixelTables):
@@ -187,6 +188,11 @@ def build_tables(*, input, calibration, model, air_temperature_k, reflected_temp
 MAX_TALLY_ENTRIES = 1 << 22
 
 
+def n_groups_ok(n_groups, n_values):
+    """Whether a tally of ``n_groups`` x ``n_values`` counters fits ``MAX_TALLY_ENTRIES``."""
+    return int(n_groups) * int(n_values) <= MAX_TALLY_ENTRIES
+
+
 def tally_groups(label_index, regions, shape, n_labels, n_values):
     """Tally groups of the lookup plan: pixels of equal label and equal membership of
     every region (a pure function of the label image and the region masks).
@@ -208,18 +214,24 @@ def tally_groups(label_index, regions, shape, n_labels, n_values):
     masks = [np.asarray(m, bool) for m in regions]
     if not masks or any(m.shape != tuple(shape) for m in masks):
         return labels_only
-    key = np.zeros(shape, np.int64) if label_index is None else label_index.astype(np.int64)
     lb = max(1, int(n_labels - 1).bit_length())            # bits of the label in the key
     if len(masks) + lb <= 20:
         # dense: a flag per possible key (at most 1 M), groups numbered in key order
+        # (int32 throughout: keys below 2^20)
+        key = np.zeros(shape, np.int32) if label_index is None else label_index.astype(np.int32)
         for k, m in enumerate(masks):
-            key |= m.astype(np.int64) << np.int64(k + lb)
-        flag = np.zeros(int(key.max()) + 1, np.int64)
+            key |= m.view(np.uint8).astype(np.int32) << np.int32(k + lb)
+        flag = np.zeros(int(key.max()) + 1, np.int32)
         flag[key.ravel()] = 1
         keys = np.flatnonzero(flag)
-        inverse = (np.cumsum(flag) - 1)[key.ravel()]
+        inverse = (np.cumsum(flag, dtype=np.int32) - np.int32(1))[key.ravel()]
         lab_of_group = keys & ((1 << lb) - 1)
-    elif len(masks) + lb <= 62:
+        if n_groups_ok(lab_of_group.size, n_values):
+            return {"group_index": inverse.reshape(shape), "group_label": lab_of_group.astype(np.int32),
+                    "groups_split_regions": True}
+        return labels_only
+    key = np.zeros(shape, np.int64) if label_index is None else label_index.astype(np.int64)
+    if len(masks) + lb <= 62:
         for k, m in enumerate(masks):
             key |= m.astype(np.int64) << np.int64(k + lb)
         _, first, inverse = np.unique(key.ravel(), return_index=True, return_inverse=True)
@@ -229,8 +241,7 @@ def tally_groups(label_index, regions, shape, n_labels, n_values):
                                np.packbits(np.stack([m.ravel() for m in masks], 1), axis=1)], 1)
         _, first, inverse = np.unique(rows, axis=0, return_index=True, return_inverse=True)
         lab_of_group = key.ravel()[first]
-    n_groups = int(lab_of_group.size)
-    if n_groups * int(n_values) > MAX_TALLY_ENTRIES:
+    if not n_groups_ok(lab_of_group.size, n_values):
         return labels_only
     return {"group_index": inverse.reshape(shape).astype(np.int32), "group_label": lab_of_group.astype(np.int32),
             "groups_split_regions": True}

@@ -169,7 +169,7 @@ class UncertaintyStage(Stage):
             raw = chunk.raw if chunk.raw is not None else idx % self.rad.n_values + self.rad.base
             last = chunk.first + n >= ctx.shape[0]
             self._ensure(raw.min(), raw.max(), 0 if last else 1024)
-            big_u = self.table_flat.take(idx)
+            big_u = self.table_flat.take(idx, mode="clip")      # indices are in range
             big_u[~valid] = np.nan
             flat_idx = idx.reshape(n, -1)
 
