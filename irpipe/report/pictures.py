@@ -43,11 +43,15 @@ _GRID = "#d4d4d4"
 def colour_range(image):
     """(vmin, vmax) of the colour scale [C]: the range of the valid values, widened to at
     least 0.5 K so that a uniform scene does not show as noise; None if nothing is valid."""
-    v = np.asarray(image, float)
-    v = v[np.isfinite(v)]
-    if v.size == 0:
-        return None
-    lo, hi = float(v.min()), float(v.max())
+    v = np.asarray(image)
+    v = v.ravel() if v.dtype.kind == "f" else v.astype(float).ravel()
+    with np.errstate(invalid="ignore"):
+        lo, hi = float(np.fmin.reduce(v, initial=np.inf)), float(np.fmax.reduce(v, initial=-np.inf))
+    if not (np.isfinite(lo) and np.isfinite(hi)):
+        v = v[np.isfinite(v)]                  # +-inf present, or nothing valid
+        if v.size == 0:
+            return None
+        lo, hi = float(v.min()), float(v.max())
     if hi - lo < 0.5:
         mid = 0.5 * (lo + hi)
         lo, hi = mid - 0.25, mid + 0.25
