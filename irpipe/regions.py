@@ -348,15 +348,24 @@ def local_linear_smooth(image, mask, radius=2):
     """
     m = np.asarray(mask, bool) & np.isfinite(image)
     out = np.full(np.shape(image), np.nan)
-    rows, cols = np.flatnonzero(m.any(axis=1)), np.flatnonzero(m.any(axis=0))
-    if rows.size == 0:
+    box = mask_box(m, radius)
+    if box is None:
         return out
     # only the mask's bounding box plus the window's reach takes part: outside it every
     # weight and value is zero, so the sums (and the result) are those of the whole image
-    r0, r1 = max(0, rows[0] - radius), min(m.shape[0], rows[-1] + radius + 1)
-    c0, c1 = max(0, cols[0] - radius), min(m.shape[1], cols[-1] + radius + 1)
-    out[r0:r1, c0:c1] = _local_linear_smooth(np.asarray(image)[r0:r1, c0:c1], m[r0:r1, c0:c1], radius)
+    out[box] = _local_linear_smooth(np.asarray(image)[box], m[box], radius)
     return out
+
+
+def mask_box(mask, margin=0):
+    """(row slice, col slice) of a mask's bounding box widened by ``margin`` pixels
+    (within the image), or None for an empty mask."""
+    m = np.asarray(mask, bool)
+    rows, cols = np.flatnonzero(m.any(axis=1)), np.flatnonzero(m.any(axis=0))
+    if rows.size == 0:
+        return None
+    return (slice(max(0, rows[0] - margin), min(m.shape[0], rows[-1] + margin + 1)),
+            slice(max(0, cols[0] - margin), min(m.shape[1], cols[-1] + margin + 1)))
 
 
 def _window_sum(a, r):

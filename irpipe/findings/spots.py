@@ -39,12 +39,23 @@ class ExtremesState:
     n_valid: np.ndarray
 
     @classmethod
-    def empty(cls, shape):
-        """State before any frame, for images of the given (M, N) shape."""
+    def empty(cls, shape, filled=True):
+        """State before any frame, for images of the given (M, N) shape. ``filled=False``
+        leaves the arrays unset (``fill`` sets them), for a caller that writes them whole."""
         shape = tuple(shape)
-        return cls(max_c=np.full(shape, np.nan), max_frame=np.full(shape, -1, dtype=np.int64),
-                   min_c=np.full(shape, np.nan), min_frame=np.full(shape, -1, dtype=np.int64),
-                   n_valid=np.zeros(shape, dtype=np.int64))
+        state = cls(max_c=np.empty(shape), max_frame=np.empty(shape, dtype=np.int64),
+                    min_c=np.empty(shape), min_frame=np.empty(shape, dtype=np.int64),
+                    n_valid=np.empty(shape, dtype=np.int64))
+        return state.fill() if filled else state
+
+    def fill(self):
+        """Set the state to "no frame seen" (NaN extremes, frame -1, no valid sample)."""
+        self.max_c.fill(np.nan)
+        self.min_c.fill(np.nan)
+        self.max_frame.fill(-1)
+        self.min_frame.fill(-1)
+        self.n_valid.fill(0)
+        return self
 
     @property
     def shape(self):
@@ -133,23 +144,30 @@ def update_extremes(state, chunk_c, first_frame):
         chunk = chunk[None]
     if chunk.ndim != 3:
         raise ValueError(f"chunk_c: expected shape (F, M, N) or (M, N), got {chunk.shape}")
-    if state is None:
-        state = ExtremesState.empty(chunk.shape[1:])
+    fresh_state = state is None
+    if fresh_state:
+        state = ExtremesState.empty(chunk.shape[1:], filled=False)
     elif chunk.shape[1:] != state.shape:
         raise ValueError(f"chunk_c: frames of shape {chunk.shape[1:]} do not match the state's "
                          f"{state.shape}; start a new state for a stack of another size")
     if int(first_frame) < 0:
         raise ValueError(f"first_frame: {first_frame} is negative")
     if chunk.shape[0] == 0:
-        return state
+        return state.fill() if fresh_state else state
     hi = chunk.max(axis=0)          # NaN or inf anywhere shows in hi or lo
     lo = chunk.min(axis=0)
     if np.isfinite(hi).all() and np.isfinite(lo).all():
-        fresh = not state.n_valid.any()         # no frame seen yet: every pixel is new
+        # no frame seen yet: every pixel is new (a new state's arrays are written whole below)
+        fresh = fresh_state or not state.n_valid.any()
         _update_one_finite(state.max_c, state.max_frame, chunk, hi, int(first_frame), +1, fresh)
         _update_one_finite(state.min_c, state.min_frame, chunk, lo, int(first_frame), -1, fresh)
-        state.n_valid += chunk.shape[0]
+        if fresh_state:
+            state.n_valid.fill(chunk.shape[0])
+        else:
+            state.n_valid += chunk.shape[0]
         return state
+    if fresh_state:
+        state.fill()
     finite = np.isfinite(chunk)
     _update_one(state.max_c, state.max_frame, chunk, finite, int(first_frame), +1)
     _update_one(state.min_c, state.min_frame, chunk, finite, int(first_frame), -1)

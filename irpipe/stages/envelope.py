@@ -14,7 +14,7 @@ import numpy as np
 
 from .. import findings
 from ..defaults import BUILDING_USE, CRITICAL_TEMPERATURE_FACTORS
-from ..regions import local_linear_smooth
+from ..regions import local_linear_smooth, mask_box
 from .base import Stage
 
 
@@ -40,16 +40,18 @@ class EnvelopeStage(Stage):
         crit_default = s.get("critical_temperature_factor")
         if crit_default is None:
             crit_default = CRITICAL_TEMPERATURE_FACTORS[s.get("building_use", BUILDING_USE)]
-        mean = ctx.picture.mean_c.astype(np.float64)
+        mean = ctx.picture.mean_c
+        finite = np.isfinite(mean)
         for r in ctx.report.get("regions", []):
             m = ctx.masks[r["name"]]
             cfg = ctx.region_cfg[r["name"]]
             if cfg.get("role", "surface") != "surface":
                 continue
-            ok = m & np.isfinite(mean)
-            if not ok.any():
+            ok = m & finite
+            box = mask_box(ok, 2)           # the region's bounding box and the window's reach
+            if box is None:
                 continue
-            smooth = local_linear_smooth(mean, ok, radius=2)     # works on the region's bounding box
+            smooth = local_linear_smooth(mean[box].astype(np.float64), ok[box], radius=2)
             tmin = float(np.nanmin(smooth))
             crit = cfg.get("critical_temperature_factor", crit_default)
             a = findings.envelope_assessment(tmin, ti, te, rh, critical_factor=crit)

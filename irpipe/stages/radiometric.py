@@ -61,7 +61,9 @@ class RadiometricStage(Stage):
             chunk.invalid_counts = {**res.invalid_counts, **{c: int(np.count_nonzero(chunk.aligned_reason == c))
                                                              for c in ALIGN_REASONS}}
             return
-        res = correct(chunk.raw, self.tables, want_signal=self.want_signal, want_index=self.want_index,
+        # no per-pixel table index here: the chunk keeps its raw values, from which a later
+        # stage gathers its own tables (the index is shipped only by cluster workers)
+        res = correct(chunk.raw, self.tables, want_signal=self.want_signal, want_index=False,
                       count=self.count, window=self.window, where=ctx.name)
         self.add_result(chunk, res, ctx)
 

@@ -160,21 +160,49 @@ class UncertaintyStage(Stage):
                 self.contrib[name][k, c] = parts[name] if name in parts else 0.0
         self.done[cols] = True
 
+    def _gather(self, raw, lo, hi):
+        """U of every pixel from its raw value and label: the table's columns [lo, hi] as
+        one small window, gathered a frame at a time with per-pixel row offsets (the
+        radiometric kernel's way, ``irpipe.kernel._sweep``; the same values as indexing
+        the whole table)."""
+        rad = self.rad
+        span = hi - lo + 1
+        win = np.ascontiguousarray(self.table[:, lo - rad.base:hi - rad.base + 1]).ravel()
+        if rad.label_index is None:
+            offsets = np.intp(-lo)
+        else:
+            offsets = rad.label_index.astype(np.intp) * np.intp(span) - np.intp(lo)
+        out = np.empty(raw.shape, np.float32)
+        idx = np.empty(raw.shape[1:], np.intp)
+        for k in range(raw.shape[0]):
+            np.add(raw[k], offsets, out=idx)
+            np.take(win, idx, out=out[k], mode="clip")
+        return out
+
+    def _table_index(self, raw, ii):
+        """Flat table indices (label * n_values + raw - base) of the pixels ``ii`` (flat
+        image indices) in every frame of ``raw``."""
+        rad = self.rad
+        cols = raw.reshape(raw.shape[0], -1)[:, ii].astype(np.intp) - rad.base
+        if rad.label_index is not None:
+            cols += rad.label_index.ravel()[ii].astype(np.intp) * rad.n_values
+        return cols
+
     # -- streaming -----------------------------------------------------------------------
     def process(self, chunk, ctx):
         n = chunk.n
         valid = np.isfinite(chunk.temperature_c)
         if self.lookup:
-            idx = chunk.lookup_index
+            idx = chunk.lookup_index        # shipped by cluster workers; locally the raw values
             raw = chunk.raw if chunk.raw is not None else idx % self.rad.n_values + self.rad.base
+            lo, hi = int(raw.min()), int(raw.max())
             last = chunk.first + n >= ctx.shape[0]
-            self._ensure(raw.min(), raw.max(), 0 if last else 1024)
-            big_u = self.table_flat.take(idx, mode="clip")      # indices are in range
+            self._ensure(lo, hi, 0 if last else 1024)
+            big_u = self._gather(raw, lo, hi) if idx is None else self.table_flat.take(idx, mode="clip")
             big_u[~valid] = np.nan
-            flat_idx = idx.reshape(n, -1)
 
             def parts(ii):          # the region's table indices, gathered once for all inputs
-                rix = flat_idx[:, ii]
+                rix = self._table_index(raw, ii) if idx is None else idx.reshape(n, -1)[:, ii]
                 return {k: self.contrib_flat[k].take(rix) for k in self.inputs}
         else:
             s = chunk.signal
