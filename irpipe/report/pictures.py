@@ -118,13 +118,20 @@ def thumbnail(image, rng, levels=MAX_LEVELS, width=THUMB_WIDTH):
     img = np.asarray(image, np.float32)
     step = max(1, math.ceil(img.shape[1] / width))
     r, c = -(-img.shape[0] // step) * step, -(-img.shape[1] // step) * step
-    pad = np.full((r, c), np.nan, np.float32)
-    pad[:img.shape[0], :img.shape[1]] = img
-    b = pad.reshape(r // step, step, c // step, step)
-    ok = np.isfinite(b)
-    n = ok.sum(3).sum(1)
-    # inner axis first (contiguous); block sums of float32 values are exact in float64
-    s = np.where(ok, b, np.float32(0)).sum(3, dtype=np.float64).sum(1)
+    if (r, c) != img.shape:
+        pad = np.full((r, c), np.nan, np.float32)
+        pad[:img.shape[0], :img.shape[1]] = img
+        img = pad
+    ok = np.isfinite(img)
+    z = np.where(ok, img, np.float32(0))
+    # block sums as step^2 strided slices added in float64 (sums of a block's float32
+    # values are exact in float64, so the order does not matter)
+    s = np.zeros((r // step, c // step))
+    n = np.zeros((r // step, c // step), np.int32)
+    for i in range(step):
+        for j in range(step):
+            s += z[i::step, j::step]
+            n += ok[i::step, j::step]
     with np.errstate(invalid="ignore", divide="ignore"):
         mean = np.where(n > 0, s / np.maximum(n, 1), np.nan)
     idx = ct.to_indices(mean, *rng, levels) if rng else np.full(mean.shape, ct.INVALID, np.uint8)
