@@ -24,6 +24,9 @@ _OPEN_LOCK = threading.RLock()
 _SCANS = {}     # (path, size, mtime) -> page shapes, data ends, plain data offsets
 
 TIFF_MAGIC = (b"II*\x00", b"MM\x00*", b"II+\x00", b"MM\x00+")
+#: TIFF flavours whose page description can declare more axes than (frames, rows, cols)
+_SHAPED_KINDS = ("shaped", "imagej", "ome", "micromanager", "mmstack", "ndtiff", "lsm", "stk", "fluoview",
+                 "scanimage", "nih")
 
 
 # --- stacks -----------------------------------------------------------------------------
@@ -87,7 +90,12 @@ class StackReader:
             ndim = len(shape) + (1 if n > 1 else 0)
             raise StackError(f"{self.path}: {label} must be a stack of 2-D single-channel frames "
                              f"(frames, rows, cols); found {n} page(s) of shape {tuple(shape)} ({ndim}-D data)")
-        series = self._tif.series[0] if self._tif.series else None
+        # a plain multi-page file is (frames, rows, cols) by construction; only a file whose
+        # description declares a shape (tifffile's own, ImageJ hyperstacks, OME) can hold
+        # more axes in 2-D pages, so only then is the series (about 1 ms) worth building
+        tif = self._tif
+        declared = any(getattr(tif, f"is_{kind}", False) for kind in _SHAPED_KINDS)
+        series = (tif.series[0] if tif.series else None) if declared else None
         if series is not None and len(series.shape) > 3 and len([d for d in series.shape if d > 1]) > 3:
             self.close()
             raise StackError(f"{self.path}: {label} has {len(series.shape)}-D data {tuple(series.shape)}; "

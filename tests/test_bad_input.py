@@ -263,3 +263,13 @@ def test_schema_into_a_closed_pipe_ends_quietly():
     p.wait()
     assert "Error" not in err and "Traceback" not in err, err
     assert p.returncode in (0, 141), p.returncode      # 141 = 128 + SIGPIPE: quiet too
+
+
+def test_four_d_imagej_hyperstack(tmp_path, capsys):
+    """An ImageJ hyperstack of 2 time points x 3 slices is stored as six 2-D pages; its
+    description declares the 4-D shape, which must be refused like tifffile's own."""
+    tifffile.imwrite(tmp_path / "a.tif", np.zeros((2, 3, 8, 8), np.uint16), imagej=True, metadata={"axes": "TZYX"})
+    cfg = _cfg(tmp_path, BASE_COND + "stacks: [{name: a, path: a.tif}]\n")
+    code, err = _run(capsys, "run", str(cfg))
+    assert code == 3
+    _assert_clean(err, "a.tif", "4-D")
