@@ -144,15 +144,19 @@ def _reference_extremes(stack):
     return out
 
 
+@pytest.mark.parametrize("kinds", [("max", "min"), ("max",), ("min",)])
 @pytest.mark.parametrize("chunk", [1, 2, 3])
-def test_update_extremes_matches_per_pixel_loop_for_any_chunking(chunk):
+def test_update_extremes_matches_per_pixel_loop_for_any_chunking(chunk, kinds):
     stack = _scene()
     state = None
     for start in range(0, stack.shape[0], chunk):
-        state = findings.update_extremes(state, stack[start:start + chunk], start)
+        state = findings.update_extremes(state, stack[start:start + chunk], start, kinds)
     ref = _reference_extremes(stack)
     for key in ("max_c", "min_c", "max_frame", "min_frame"):
-        np.testing.assert_array_equal(getattr(state, key), ref[key])
+        if key[:3] in kinds:
+            np.testing.assert_array_equal(getattr(state, key), ref[key])
+        else:                      # an extreme not asked for stays as in a new state
+            assert np.all(np.isnan(getattr(state, key)) if key.endswith("_c") else getattr(state, key) == -1)
     assert state.n_valid[0, 49] == 0 and state.max_frame[0, 49] == -1 and np.isnan(state.max_c[0, 49])
     assert state.n_valid[5, 5] == 2 and state.n_valid[1, 1] == 3
 

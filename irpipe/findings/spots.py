@@ -111,7 +111,7 @@ def _update_one_finite(best, best_frame, chunk, value, first_frame, sign, fresh=
     best_frame.reshape(-1)[where] = first_frame + k
 
 
-def update_extremes(state, chunk_c, first_frame):
+def update_extremes(state, chunk_c, first_frame, kinds=("max", "min")):
     """Fold a chunk of frames into the running per-pixel maximum and minimum.
 
     Parameters
@@ -122,6 +122,9 @@ def update_extremes(state, chunk_c, first_frame):
         Surface temperatures [degC]; NaN (and +-inf) are invalid and ignored.
     first_frame : int
         Index, in the whole stack, of the chunk's first frame.
+    kinds : tuple of {"max", "min"}
+        The extremes to keep (a hot-spot search alone needs only the maximum); the
+        other's arrays stay as in a new state (NaN, frame -1). ``n_valid`` is always kept.
 
     Returns
     -------
@@ -154,13 +157,22 @@ def update_extremes(state, chunk_c, first_frame):
         raise ValueError(f"first_frame: {first_frame} is negative")
     if chunk.shape[0] == 0:
         return state.fill() if fresh_state else state
+    want_max, want_min = "max" in kinds, "min" in kinds
     hi = chunk.max(axis=0)          # NaN or inf anywhere shows in hi or lo
     lo = chunk.min(axis=0)
     if np.isfinite(hi).all() and np.isfinite(lo).all():
         # no frame seen yet: every pixel is new (a new state's arrays are written whole below)
         fresh = fresh_state or not state.n_valid.any()
-        _update_one_finite(state.max_c, state.max_frame, chunk, hi, int(first_frame), +1, fresh)
-        _update_one_finite(state.min_c, state.min_frame, chunk, lo, int(first_frame), -1, fresh)
+        if want_max:
+            _update_one_finite(state.max_c, state.max_frame, chunk, hi, int(first_frame), +1, fresh)
+        elif fresh_state:
+            state.max_c.fill(np.nan)
+            state.max_frame.fill(-1)
+        if want_min:
+            _update_one_finite(state.min_c, state.min_frame, chunk, lo, int(first_frame), -1, fresh)
+        elif fresh_state:
+            state.min_c.fill(np.nan)
+            state.min_frame.fill(-1)
         if fresh_state:
             state.n_valid.fill(chunk.shape[0])
         else:
@@ -169,8 +181,10 @@ def update_extremes(state, chunk_c, first_frame):
     if fresh_state:
         state.fill()
     finite = np.isfinite(chunk)
-    _update_one(state.max_c, state.max_frame, chunk, finite, int(first_frame), +1)
-    _update_one(state.min_c, state.min_frame, chunk, finite, int(first_frame), -1)
+    if want_max:
+        _update_one(state.max_c, state.max_frame, chunk, finite, int(first_frame), +1)
+    if want_min:
+        _update_one(state.min_c, state.min_frame, chunk, finite, int(first_frame), -1)
     state.n_valid += finite.sum(axis=0)
     return state
 

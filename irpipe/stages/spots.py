@@ -19,9 +19,11 @@ class SpotStage(Stage):
 
     def start(self, ctx):
         self.state = None
+        # only the extremes a search needs: the maximum for hot spots, the minimum for cold
+        self.kinds = tuple(k for k, key in (("max", "hotspots"), ("min", "coldspots")) if ctx.stack.get(key))
 
     def process(self, chunk, ctx):
-        self.state = findings.update_extremes(self.state, chunk.temperature_c, chunk.first)
+        self.state = findings.update_extremes(self.state, chunk.temperature_c, chunk.first, self.kinds)
 
     def _reference(self, spec, ctx, image):
         ref = spec.get("reference")
