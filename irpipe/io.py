@@ -357,9 +357,9 @@ def atomic_path(dest, fsync=True):
         raise
 
 
-def write_text_atomic(dest, text):
+def write_text_atomic(dest, text, fsync=True):
     try:
-        with atomic_path(dest) as tmp:
+        with atomic_path(dest, fsync=fsync) as tmp:
             tmp.write_text(text, encoding="utf-8")
     except OSError as exc:
         raise OutputError(f"{dest}: cannot write ({exc.strerror}); free disk space or choose another --out") from None

@@ -105,7 +105,10 @@ def write_all(out_dir: Path, report: dict, pictures: dict) -> list[str]:
     write_text_atomic(out_dir / "regions.csv", regions_csv(report))
     write_text_atomic(out_dir / "findings.csv", findings_csv(findings))
     for rel, text in pages.items():
-        write_text_atomic(out_dir / rel, text)
+        # hundreds of pages drawn from the outputs again by any later run: renamed into
+        # place complete, but not forced to disk one by one (as the stacks without
+        # output.fsync); report.html, the tables and report.json are
+        write_text_atomic(out_dir / rel, text, fsync=False)
     write_text_atomic(out_dir / "report.html", page)
     _remove_stale_pages(out_dir, set(pages))
     _store_cache(out_dir, stacks, enc)
