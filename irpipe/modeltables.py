@@ -99,6 +99,18 @@ def _response_key(response, weights=True):
         return key
 
 
+def _samples_key(samples):
+    """Content key of a sample array; the kept path-free arrays (``_kept_plain``), which
+    every path of a camera passes again, are hashed once."""
+    for value, key in _plain_keys.values():
+        if value is samples:
+            return key
+    key = _digest(samples)
+    if any(v is samples for v in _plain.values()):
+        _plain_keys[id(samples)] = (samples, key)
+    return key
+
+
 def _coarse_index(size):
     """Every ``COARSE_STEP``-th of ``size`` table nodes and the last."""
     return np.unique(np.r_[np.arange(0, size, COARSE_STEP), size - 1])
@@ -156,7 +168,7 @@ def _signal_table(func, t_range, samples):
     """The signal table with these samples: one object per distinct sample array."""
     if not _state["enabled"]:
         return MonotoneTable(func, *t_range, samples=samples)
-    key = (t_range, _digest(samples))
+    key = (t_range, _samples_key(samples))
     table = _signals.get(key)
     if table is None:
         table = MonotoneTable(func, *t_range, samples=samples)
@@ -171,6 +183,7 @@ def _signal_table(func, t_range, samples):
 #: perturbed paths: the path's band transmittance on every COARSE_STEP-th table node
 COARSE_STEP = 16
 _plain: OrderedDict = OrderedDict()
+_plain_keys: dict = {}        # id -> (kept path-free array, its content key)
 
 
 def _kept_plain(key, make):
@@ -182,7 +195,8 @@ def _kept_plain(key, make):
         if _state["enabled"]:
             _plain[key] = value
             while len(_plain) > MAX_SIGNAL_TABLES:
-                _plain.popitem(last=False)
+                _, gone = _plain.popitem(last=False)
+                _plain_keys.pop(id(gone), None)
     return value
 
 
@@ -307,6 +321,7 @@ def clear():
         _paths.clear()
         _signals.clear()
         _plain.clear()
+        _plain_keys.clear()
         _response_keys.clear()
         _state.update(planck_hits=0, planck_misses=0, path_hits=0, path_misses=0)
 
