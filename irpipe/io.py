@@ -414,8 +414,10 @@ class StackWriter:
     Frames are appended as one contiguous series, in writes of at most ``PIECE_BYTES``
     (but whole frames); ``description`` (JSON text) goes into the first page's
     ImageDescription. Written data is handed to the operating system for write-back as it
-    goes (with ``fsync``), so the sync at ``commit`` does not have to flush the whole
-    stack at once.
+    goes, with or without ``fsync``: the sync at ``commit`` then does not have to flush the
+    whole stack at once, and without it the dirty pages of a long stack do not pile up
+    until the kernel throttles the writer (measured on the 2-core VM of benchmarks/, 600
+    frames 640x512: closing the file took 0.3 s without write-back, 0.0 s with it).
     """
 
     #: start write-back after this many bytes since the last time [bytes]
@@ -458,7 +460,7 @@ class StackWriter:
                 self._tw.write(piece, contiguous=True, metadata=None, photometric="minisblack", **kw)
                 self._written += piece.shape[0]
             self._pending += chunk.nbytes
-            if self.fsync and self._pending >= self.WRITEBACK_BYTES:
+            if self._pending >= self.WRITEBACK_BYTES:
                 self._pending = 0
                 self._writeback()
         except OSError as exc:

@@ -50,6 +50,24 @@ def test_writer_chunks_make_one_series(tmp_path):
     assert [p.name for p in tmp_path.iterdir()] == ["t.tif"]
 
 
+@pytest.mark.parametrize("fsync", [False, True])
+def test_writer_hands_data_to_write_back_as_it_goes(tmp_path, monkeypatch, fsync):
+    # Performance behaviour, common practice (no published source): a long stack is queued
+    # for write-back every WRITEBACK_BYTES with or without fsync, so its dirty pages never
+    # pile up until the kernel throttles the writer; the bytes written stay the same.
+    import irpipe.io as io
+    calls = []
+    monkeypatch.setattr(io, "_start_writeback", lambda fd: calls.append(fd))
+    monkeypatch.setattr(StackWriter, "WRITEBACK_BYTES", 2 * 6 * 8 * 4)
+    a = np.arange(10 * 6 * 8, dtype=np.float32).reshape(10, 6, 8)
+    w = StackWriter(tmp_path / "t.tif", a.shape, fsync=fsync)
+    for s in range(0, 10, 2):
+        w.write(a[s:s + 2])
+    w.commit()
+    assert len(calls) == 5
+    np.testing.assert_array_equal(tifffile.imread(tmp_path / "t.tif"), a)
+
+
 def test_reader_chunks_cover_the_stack_in_order(tmp_path, write_stack):
     data = np.arange(7 * 3 * 4, dtype=np.uint16).reshape(7, 3, 4)
     write_stack(tmp_path / "s.tif", data)
