@@ -16,12 +16,19 @@ imports, tables) from the comparison; the whole-run ratio keeps it. Peak RSS is 
 subprocess's own maximum resident set (``os.wait4``). ``os.sync()`` before each timed
 process keeps one run's write-back out of the next one's time.
 
+With ``--reference DIR`` (the source tree of another irpipe version, for example a
+version 0.1.0 from ``git worktree add /tmp/irpipe-010 02b23b4``) the same ``run`` is also timed with that tree
+first on ``PYTHONPATH``, in the same rounds, so that a change of the per-frame cost is
+measured on one machine at one time: the floor of this kind of virtual machine moves by a
+factor of three between days (page cache, host load), the ratio of two runs much less.
+
 Both commands write into new files: each one's earlier output is deleted, and the timed
 process starts ``benchcommon.PAUSE_S`` seconds later (``benchcommon`` explains why: on this
 kind of virtual machine, refilling just-freed page-cache pages is about ten times faster
 than filling new ones, which had flattered the floor by up to 2.5 ms per frame).
 
-    python benchmarks/bench_run.py [--frames-small 100] [--frames-large 600] [--keep]
+    python benchmarks/bench_run.py [--frames-small 100] [--frames-large 600] [--repeat 5]
+                                   [--reference DIR] [--keep]
 
 Prints a table and writes ``benchmarks/results.json``.
 """
@@ -203,6 +210,16 @@ def timed(cmd, env, remove=()):
     return dt, ru.ru_maxrss / 1024.0     # Linux: kilobytes
 
 
+def _commit(tree):
+    """The short commit hash of a source tree, or None outside git."""
+    try:
+        out = subprocess.run(["git", "-C", str(tree), "rev-parse", "--short", "HEAD"],
+                             capture_output=True, text=True, timeout=10)
+    except (OSError, subprocess.SubprocessError):
+        return None
+    return out.stdout.strip() or None
+
+
 def main(argv=None):
     argv = sys.argv[1:] if argv is None else argv
     if argv[:1] == ["--generate"]:
@@ -215,6 +232,8 @@ def main(argv=None):
     ap.add_argument("--keep", action="store_true", help="keep the generated folder and print it")
     ap.add_argument("--no-report", action="store_true",
                     help="output.report: false (no HTML report and pictures; report.json only)")
+    ap.add_argument("--reference", metavar="DIR",
+                    help="source tree of another irpipe version, timed in the same rounds")
     ap.add_argument("--json", default=str(Path(__file__).with_name("results.json")))
     a = ap.parse_args(argv)
     if a.frames_large <= a.frames_small:
@@ -222,6 +241,13 @@ def main(argv=None):
 
     env = dict(os.environ)
     env["PYTHONPATH"] = str(ROOT) + os.pathsep + env.get("PYTHONPATH", "")
+    ref_env = None
+    if a.reference:
+        ref = Path(a.reference).resolve()
+        if not (ref / "irpipe" / "__init__.py").is_file():
+            ap.error(f"--reference {a.reference}: no irpipe/__init__.py there; give the root of an irpipe source tree")
+        ref_env = dict(os.environ)
+        ref_env["PYTHONPATH"] = str(ref) + os.pathsep + os.environ.get("PYTHONPATH", "")
     folder = Path(tempfile.mkdtemp(prefix="irpipe-bench-"))
     try:
         res = {}
@@ -237,10 +263,14 @@ def main(argv=None):
                        "--quiet"]
             floor_cmd = [sys.executable, "-c", FLOOR, str(stack), str(folder / f"floor_{n}.tif")]
             best = {}
-            outputs = {"floor": [folder / f"floor_{n}.tif"], "run": [folder / f"out_{n}"]}
+            outputs = {"floor": [folder / f"floor_{n}.tif"], "run": [folder / f"out_{n}"],
+                       "reference": [folder / f"ref_{n}"]}
+            kinds = [("floor", floor_cmd, env), ("run", run_cmd, env)]
+            if ref_env is not None:
+                kinds.append(("reference", run_cmd[:-2] + [str(folder / f"ref_{n}"), "--quiet"], ref_env))
             for _ in range(a.repeat):
-                for kind, cmd in (("floor", floor_cmd), ("run", run_cmd)):
-                    dt, rss = timed(cmd, env, outputs[kind])
+                for kind, cmd, kind_env in kinds:
+                    dt, rss = timed(cmd, kind_env, outputs[kind])
                     if kind not in best or dt < best[kind][0]:
                         best[kind] = (dt, rss)
             res[n] = {k: {"seconds": round(v[0], 3), "peak_rss_mb": round(v[1], 1)} for k, v in best.items()}
@@ -248,6 +278,7 @@ def main(argv=None):
             res[n]["plan"] = rep["stacks"][0].get("plan")
             print(f"bench: {n} frames: run {best['run'][0]:.2f} s, floor {best['floor'][0]:.2f} s", file=sys.stderr)
             (folder / f"floor_{n}.tif").unlink()
+            shutil.rmtree(folder / f"ref_{n}", ignore_errors=True)
             if not a.keep:
                 stack.unlink()
                 shutil.rmtree(folder / f"out_{n}")
@@ -255,7 +286,7 @@ def main(argv=None):
         s, l = a.frames_small, a.frames_large
         dn = l - s
         mpx = ROWS * COLS / 1e6
-        per = {k: (res[l][k]["seconds"] - res[s][k]["seconds"]) / dn for k in ("run", "floor")}
+        per = {k: (res[l][k]["seconds"] - res[s][k]["seconds"]) / dn for k in res[l] if k != "plan"}
         summary = {
             "shape": [None, ROWS, COLS], "dtype": "uint16", "frames_small": s, "frames_large": l,
             "plan": res[l]["plan"], "html_report": not a.no_report, "repeat": a.repeat,
@@ -270,6 +301,12 @@ def main(argv=None):
                              "run_whole": {str(n): round(n * mpx / res[n]["run"]["seconds"], 1) for n in (s, l)}},
             "peak_rss_mb": {"run": {str(n): res[n]["run"]["peak_rss_mb"] for n in (s, l)},
                             "floor": {str(n): res[n]["floor"]["peak_rss_mb"] for n in (s, l)}},
+            **({"reference": {"tree": str(Path(a.reference).resolve()), "commit": _commit(a.reference),
+                              "run_s": {str(n): res[n]["reference"]["seconds"] for n in (s, l)},
+                              "per_frame_ms": round(per["reference"] * 1e3, 3),
+                              "per_frame_run_over_reference": round(per["run"] / per["reference"], 3)
+                              if per["reference"] > 0 else None}}
+               if a.reference else {}),
             "machine": machine_info(),
             "created_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
         }
@@ -291,6 +328,11 @@ def main(argv=None):
     for n in (s, l):
         print(f"{f'peak RSS, {n} frames [MB]':24s}{res[n]['run']['peak_rss_mb']:{w}.0f}"
               f"{res[n]['floor']['peak_rss_mb']:{w}.0f}")
+    if a.reference:
+        rr = summary["reference"]
+        print(f"reference {rr['tree']}: per frame {rr['per_frame_ms']:.2f} ms, whole run "
+              f"{rr['run_s'][str(s)]:.2f} / {rr['run_s'][str(l)]:.2f} s; "
+              f"per frame, this tree / reference = {rr['per_frame_run_over_reference'] or float('nan'):.2f}")
     print(f"plan: {summary['plan']}; HTML report: {'no' if a.no_report else 'yes'}; "
           f"best of {a.repeat}; {os.cpu_count()} cpu(s)")
     try:                  # keep the other benchmarks' sections (bench_survey.py: "survey")
